@@ -1,0 +1,3 @@
+from probeflow.cli.main import main
+
+raise SystemExit(main())
