@@ -89,7 +89,7 @@ def potential_from_ph(
     :func:`ph_from_potential`.
 
     >>> round(potential_from_ph(4.0, 25.0), 3)
-    177.477
+    177.478
     """
     t = np.asarray(temp_c, dtype=np.float64)
     k = NERNST_MV_PER_K * (t + ZERO_CELSIUS_K)
