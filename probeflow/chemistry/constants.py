@@ -21,3 +21,7 @@ ZERO_CELSIUS_K = 273.15                 # [K], definition of the Celsius scale
 LN10 = math.log(10.0)
 
 STANDARD_PRESSURE_KPA = 101.325         # one standard atmosphere [kPa], definition
+
+# CODATA 2018 (measured, not exact since 2019): vacuum electric permittivity
+# eps0 [F/m], Tiesinga et al., Rev. Mod. Phys. 93, 025010 (2021).
+VACUUM_PERMITTIVITY_F_PER_M = 8.8541878128e-12
