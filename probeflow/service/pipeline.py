@@ -1,0 +1,433 @@
+"""The service: collectors -> bounded queue -> micro-batches -> convert -> rules -> stores.
+
+Collectors put reading batches into one bounded queue (a full queue makes
+them wait: back-pressure, never loss).  One pipeline thread coalesces what is
+queued into a micro-batch of up to ``batch_rows`` rows or ``batch_ms``
+milliseconds, converts it, runs the rules, and hands the result to every
+store's worker (see ``workers.py``).  Each batch's ``on_committed`` hooks run
+after the durable stores (SQLite) have committed it.
+
+``Service.run()`` returns when :meth:`Service.request_stop` is called (the
+CLI does so on SIGTERM/SIGINT) or every collector is a finite source that has
+finished; either way everything read is converted and every store is flushed
+and closed before it returns.
+"""
+
+from __future__ import annotations
+
+import collections
+import importlib
+import json
+import os
+import queue
+import threading
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Literal
+
+import numpy as np
+
+from probeflow.batch import ProcessedBatch, QuarantineItem, ReadingBatch
+from probeflow.collectors.base import CollectorContext
+from probeflow.collectors.parse import reason_kind
+from probeflow.config.load import LoadedConfig, PluginSection
+from probeflow.config.models import ServiceSettings
+from probeflow.convert import Converter
+from probeflow.errors import ConfigError, ProbeflowError
+from probeflow.events import AlertEvent
+from probeflow.service.log import Log, RateLimiter
+from probeflow.service.workers import CommitTracker, StoreWorker
+from probeflow.stores.base import StoreContext
+
+__all__ = ["Service", "ServiceStats", "build_rule_engine_for", "build_service"]
+
+_END = object()
+_QUARANTINE_BACKLOG = 100_000
+
+
+def _empty_processed() -> ProcessedBatch:
+    f = np.empty(0, dtype=np.float64)
+    return ProcessedBatch(np.empty(0, dtype=object), f, f, f, f, f, f, np.empty(0, dtype=np.uint8))
+
+
+@dataclass
+class ServiceStats:
+    readings_in: int = 0
+    readings_converted: int = 0
+    batches: int = 0
+    quarantined: int = 0
+    quarantine_lost: int = 0
+    alerts: int = 0
+    rule_errors: int = 0
+    conversion_failed: int = 0
+    per_collector: dict[str, dict[str, int]] = field(default_factory=dict)
+    per_store: dict[str, dict[str, int]] = field(default_factory=dict)
+
+
+def build_rule_engine_for(config: LoadedConfig) -> Any:
+    """The rule engine for ``config.rules`` (None when there is no rules section)."""
+    if config.rules is None:
+        return None
+    for module_name in ("probeflow.rules", "probeflow.rules.config", "probeflow.rules.engine"):
+        try:
+            module = importlib.import_module(module_name)
+        except ImportError:
+            continue
+        build = getattr(module, "build_rule_engine", None)
+        if build is not None:
+            return build(config.rules, list(config.probe_ids))
+    raise ConfigError("rules: the rules engine (build_rule_engine) is not available in this build",
+                      path=config.path, problems=[("rules", "rules engine not available")])
+
+
+class Service:
+    """One pipeline instance (several can coexist in a process, e.g. in tests)."""
+
+    def __init__(self, *, site: str, converter: Converter,
+                 collectors: Sequence[tuple[str, Any, Any]],
+                 stores: Sequence[tuple[str, Any]],
+                 rules: Any = None,
+                 settings: ServiceSettings | None = None,
+                 log: Log | None = None,
+                 known_probes: frozenset[str] | None = None,
+                 tick_clock: Literal["wall", "data"] = "wall",
+                 retry_collectors: bool = False) -> None:
+        """collectors: (name, plugin class, plugin config); stores: (name, store object).
+
+        tick_clock        time given to time-based rules: this computer's clock
+                          ("wall", live) or the latest reading's ("data", replay)
+        retry_collectors  keep retrying a collector whose start fails (live service)
+        """
+        self.site = site
+        self.converter = converter
+        self.rules = rules
+        self.settings = settings or ServiceSettings()
+        self.log = log or Log(fmt=self.settings.log_format)
+        self.tick_clock = tick_clock
+        self.retry_collectors = retry_collectors
+        self._failed_starts: dict[str, tuple[tuple[str, Any, CollectorContext], int, float]] = {}
+        self.stats = ServiceStats()
+        self._stop = threading.Event()
+        self._input: queue.Queue[Any] = queue.Queue(maxsize=self.settings.queue_batches)
+        self._quarantine: collections.deque[QuarantineItem] = collections.deque()
+        self._quarantine_lock = threading.Lock()
+        self._quarantine_logs = RateLimiter(60.0)
+        durable = [name for name, s in stores if getattr(s, "durable", False)]
+        self._tracker = CommitTracker(len(durable), self.log)
+        self.workers = [
+            StoreWorker(name, store, self.log, queue_batches=self.settings.store_queue_batches,
+                        retry_max_s=self.settings.store_retry_max_s,
+                        on_committed=self._tracker.done)
+            for name, store in stores
+        ]
+        self.collectors: list[tuple[str, Any, CollectorContext]] = []
+        for name, plugin, config in collectors:
+            context = CollectorContext(
+                name=name, emit_batch=self._enqueue, quarantine_item=self._enqueue_quarantine,
+                known_probes=known_probes if known_probes is not None else frozenset(converter.probe_ids),
+                stop_event=threading.Event(), log=self.log.bind(collector=name))
+            self.collectors.append((name, plugin(config, context), context))
+        self._thread = threading.Thread(target=self._pipeline, name="pipeline", daemon=True)
+        self._last_ts = -np.inf
+        self._started = False
+
+    # -- collector side (any thread) ---------------------------------------------
+    def _enqueue(self, batch: ReadingBatch) -> None:
+        self._input.put(batch)
+
+    def _enqueue_quarantine(self, item: QuarantineItem) -> None:
+        with self._quarantine_lock:
+            if len(self._quarantine) >= _QUARANTINE_BACKLOG:
+                self.stats.quarantine_lost += 1
+                lost = True
+            else:
+                self._quarantine.append(item)
+                lost = False
+        if lost:
+            allowed, held = self._quarantine_logs.allow(("backlog", item.source))
+            if allowed:
+                self.log.error("quarantine_backlog_full", source=item.source, suppressed=held,
+                               lost_total=self.stats.quarantine_lost)
+            return
+        allowed, held = self._quarantine_logs.allow((item.source, reason_kind(item.reason)))
+        if allowed:
+            self.log.warning("input_quarantined", source=item.source, reason=item.reason,
+                             similar_in_last_minute=held)
+
+    # -- control ----------------------------------------------------------------------
+    def request_stop(self) -> None:
+        """Ask the service to stop (safe from a signal handler)."""
+        self._stop.set()
+
+    @property
+    def stopping(self) -> bool:
+        return self._stop.is_set()
+
+    def start(self) -> None:
+        """Start store workers, the pipeline thread and every collector.
+
+        A collector whose ``start`` fails is logged and, when the service was
+        built with ``retry_collectors`` (``run``), retried with capped backoff
+        while the others carry on; otherwise the error is raised.
+        """
+        for worker in self.workers:
+            worker.start()
+        self._thread.start()
+        self._started = True
+        for entry in self.collectors:
+            self._start_collector(entry)
+        self.log.info("service_started", site=self.site, probes=len(self.converter.probe_ids),
+                      collectors=len(self.collectors), stores=len(self.workers))
+
+    def _start_collector(self, entry: tuple[str, Any, CollectorContext], attempt: int = 1) -> None:
+        name, collector, _context = entry
+        try:
+            collector.start()
+        except Exception as exc:  # plugin code: isolate, report, retry
+            if not self.retry_collectors:
+                raise
+            delay = min(30.0, 2.0 ** (attempt - 1))
+            self._failed_starts[name] = (entry, attempt, time.monotonic() + delay)
+            self.log.error("collector_start_failed", collector=name, attempt=attempt,
+                           retry_in_s=delay, error=f"{type(exc).__name__}: {exc}")
+            return
+        self._failed_starts.pop(name, None)
+        self.log.info("collector_started", collector=name, attempt=attempt)
+
+    def _retry_collectors(self) -> None:
+        now = time.monotonic()
+        for entry, attempt, due in list(self._failed_starts.values()):
+            if now >= due:
+                self._start_collector(entry, attempt + 1)
+
+    def run(self, duration_s: float | None = None) -> ServiceStats:
+        """Start, run until stopped (or finite sources end, or ``duration_s``), then shut down."""
+        if not self._started:
+            self.start()
+        end = time.monotonic() + duration_s if duration_s is not None else float("inf")
+        while not self._stop.wait(0.1):
+            if time.monotonic() >= end:
+                break
+            self._retry_collectors()
+            if self.collectors and all(c.done for _, c, _ in self.collectors):
+                break
+            if not self._thread.is_alive():
+                self.log.error("pipeline_stopped_unexpectedly")
+                break
+        self.shutdown()
+        return self.stats
+
+    def shutdown(self) -> None:
+        """Stop collectors, convert what is queued, flush and close every store."""
+        timeout = self.settings.stop_timeout_s
+        deadline = time.monotonic() + timeout
+        collectors_running = self._started
+        if not self._started:  # built but never run: still close every store properly
+            for worker in self.workers:
+                worker.start()
+            self._thread.start()
+            self._started = True
+        never_started = set(self._failed_starts)
+        for name, collector, context in (self.collectors if collectors_running else []):
+            if name in never_started:
+                continue
+            context.stop_event.set()
+            try:
+                collector.stop(timeout=max(0.1, deadline - time.monotonic()))
+            except Exception as exc:
+                self.log.error("collector_stop_failed", collector=name, error=str(exc))
+        self._input.put(_END)
+        self._thread.join(max(0.1, deadline - time.monotonic()))
+        for worker in self.workers:
+            worker.close(max(0.5, deadline - time.monotonic()))
+        self._save_rule_state()
+        for name, _collector, context in self.collectors:
+            c = context.counters
+            self.stats.per_collector[name] = {"received": c.received, "quarantined": c.quarantined,
+                                              "reconnects": c.reconnects}
+        for worker in self.workers:
+            k = worker.counters
+            self.stats.per_store[worker.name] = {"rows": k.rows, "errors": k.errors,
+                                                 "lost_rows": k.lost_rows}
+        self.log.info("service_stopped", readings=self.stats.readings_converted,
+                      quarantined=self.stats.quarantined, alerts=self.stats.alerts,
+                      store_lost_rows=sum(w.counters.lost_rows for w in self.workers))
+
+    # -- the pipeline thread -------------------------------------------------------------
+    def _pipeline(self) -> None:
+        batch_rows = self.settings.batch_rows
+        wait_s = self.settings.batch_ms / 1000.0
+        last_tick = time.monotonic()
+        ended = False
+        while not ended:
+            pending: list[ReadingBatch] = []
+            rows = 0
+            try:
+                item = self._input.get(timeout=0.25)
+            except queue.Empty:
+                item = None
+            if item is _END:
+                ended = True
+            elif item is not None:
+                pending.append(item)
+                rows = len(item)
+                until = time.monotonic() + wait_s
+                while rows < batch_rows:
+                    try:
+                        more = self._input.get(timeout=max(0.0, until - time.monotonic()))
+                    except queue.Empty:
+                        break
+                    if more is _END:
+                        ended = True
+                        break
+                    pending.append(more)
+                    rows += len(more)
+            self._drain_quarantine()
+            if pending:
+                self._process(ReadingBatch.concat(pending))
+            if self.rules is not None and time.monotonic() - last_tick >= 1.0:
+                last_tick = time.monotonic()
+                self._tick()
+        self._drain_quarantine()
+
+    def _process(self, batch: ReadingBatch) -> None:
+        self.stats.readings_in += len(batch)
+        try:
+            processed = self.converter.convert(batch)
+        except Exception as exc:
+            self.stats.conversion_failed += len(batch)
+            self.log.error("conversion_failed", rows=len(batch), error=f"{type(exc).__name__}: {exc}",
+                           hint="these readings were not stored; please report this as a bug")
+            return
+        alerts: list[AlertEvent] = []
+        if self.rules is not None:
+            try:
+                alerts = list(self.rules.process(processed))
+            except Exception as exc:
+                self.stats.rule_errors += 1
+                self.log.error("rules_failed", rows=len(processed), error=f"{type(exc).__name__}: {exc}")
+        if len(processed):
+            self._last_ts = max(self._last_ts, float(np.max(processed.ts)))
+        self._dispatch(processed, alerts)
+        self.stats.batches += 1
+        self.stats.readings_converted += len(processed)
+
+    def _dispatch(self, processed: ProcessedBatch, alerts: Sequence[AlertEvent]) -> None:
+        self.stats.alerts += len(alerts)
+        seq = self._tracker.add(processed.on_committed)
+        for worker in self.workers:
+            worker.submit(seq, processed, alerts)
+
+    def _tick(self) -> None:
+        now = time.time() if self.tick_clock == "wall" else self._last_ts
+        if not np.isfinite(now):
+            return
+        try:
+            alerts = list(self.rules.tick(now))
+        except Exception as exc:
+            self.stats.rule_errors += 1
+            self.log.error("rules_tick_failed", error=f"{type(exc).__name__}: {exc}")
+            return
+        if alerts:
+            self._dispatch(_empty_processed(), alerts)
+
+    def _drain_quarantine(self) -> None:
+        with self._quarantine_lock:
+            if not self._quarantine:
+                return
+            items = list(self._quarantine)
+            self._quarantine.clear()
+        self.stats.quarantined += len(items)
+        for worker in self.workers:
+            worker.submit_quarantine(items)
+
+    # -- rule state -------------------------------------------------------------------
+    def restore_rule_state(self) -> None:
+        path = self.settings.state_path
+        if self.rules is None or not path or not os.path.exists(path):
+            return
+        try:
+            with open(path, encoding="utf-8") as f:
+                self.rules.restore(json.load(f))
+            self.log.info("rule_state_restored", path=path)
+        except (OSError, ValueError) as exc:
+            self.log.error("rule_state_unreadable", path=path, error=str(exc))
+
+    def _save_rule_state(self) -> None:
+        path = self.settings.state_path
+        if self.rules is None or not path:
+            return
+        tmp = Path(path + ".tmp")
+        try:
+            tmp.parent.mkdir(parents=True, exist_ok=True)
+            fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o600)
+            with os.fdopen(fd, "w", encoding="utf-8") as f:
+                json.dump(self.rules.state(), f)
+                f.flush()
+                os.fsync(f.fileno())
+            os.replace(tmp, path)
+        except (OSError, TypeError, ValueError) as exc:
+            self.log.error("rule_state_not_saved", path=path, error=str(exc))
+
+
+def build_service(config: LoadedConfig, *, collectors: Sequence[PluginSection] | None = None,
+                  stores: Sequence[PluginSection] | None = None,
+                  extra_stores: Sequence[tuple[str, Any]] = (),
+                  log: Log | None = None, base_dir: str | None = None,
+                  tick_clock: Literal["wall", "data"] = "wall",
+                  rules: bool = True, retry_collectors: bool = False) -> Service:
+    """Build a service from a loaded config; ``collectors``/``stores`` replace the
+    config's sections (``filter`` and ``replay`` use their own source)."""
+    log = log or Log(fmt=config.service.log_format)
+    converter = Converter(config.probes)
+    context = StoreContext(config.site, log=log, base_dir=base_dir or os.getcwd())
+    store_objects: list[tuple[str, Any]] = []
+    try:
+        for section in (config.stores if stores is None else stores):
+            try:
+                store_objects.append((section.name, section.plugin(section.config, context)))
+            except ProbeflowError:
+                raise
+            except Exception as exc:  # plugin code
+                raise ProbeflowError(f'{section.key_path}: the store "{section.type}" could not '
+                                     f"be opened: {type(exc).__name__}: {exc}") from exc
+    except BaseException:
+        for _name, store in store_objects:
+            try:
+                store.close()
+            except Exception as exc:
+                log.error("store_close_failed", store=_name, error=str(exc))
+        raise
+    store_objects.extend(extra_stores)
+    _apply_stored_calibrations(config, converter, store_objects, log)
+    engine = build_rule_engine_for(config) if rules else None
+    service = Service(
+        site=config.site, converter=converter,
+        collectors=[(s.name, s.plugin, s.config) for s in (config.collectors if collectors is None
+                                                            else collectors)],
+        stores=store_objects, rules=engine, settings=config.service, log=log,
+        tick_clock=tick_clock, retry_collectors=retry_collectors)
+    service.restore_rule_state()
+    return service
+
+
+def _apply_stored_calibrations(config: LoadedConfig, converter: Converter,
+                               stores: Sequence[tuple[str, Any]], log: Log) -> None:
+    sources = [s for _n, s in stores if hasattr(s, "latest_calibration")]
+    for probe in config.probes:
+        if not probe.calibration_from_store:
+            continue
+        found = None
+        for source in sources:
+            found = source.latest_calibration(probe.id)
+            if found:
+                break
+        if found:
+            converter.set_calibration(probe.id, found["offset_mv"], found["slope_pct"],
+                                      found["zero_ph"])
+            log.info("calibration_loaded", probe=probe.id, calibrated_at=found["ts"])
+        else:
+            log.warning("calibration_missing", probe=probe.id,
+                        hint="no accepted calibration in the store; readings are flagged uncalibrated")

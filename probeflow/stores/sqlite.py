@@ -1,0 +1,161 @@
+"""SQLite store: the embedded default, one file in WAL mode.
+
+Tables
+  readings     probe, ts, mv, temp_c, ph, neutral_ph, neutral_dev, quality;
+               UNIQUE(probe, ts) with INSERT OR IGNORE, so a reading written
+               twice (a redelivery after a crash) is stored once
+  alerts       one row per alarm transition; UNIQUE(alarm_id, ts, event)
+  calibrations one row per calibration (filled by the calibration workflow)
+  quarantine   rejected input: source, reason, raw text, received_ts
+
+Every ``write`` is one transaction (executemany per table), committed before
+it returns, so the service may acknowledge the batch's sources afterwards.
+The file is created with mode 0600 (SQLite gives its -wal and -shm files the
+same mode).  ``ts`` is epoch seconds (REAL, UTC); NaN is stored as NULL.
+"""
+
+from __future__ import annotations
+
+import os
+import sqlite3
+import threading
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any, Literal
+
+from probeflow.batch import QUALITY_NAMES, ProcessedBatch, QuarantineItem
+from probeflow.errors import StoreError
+from probeflow.events import AlertEvent
+from probeflow.stores.base import StoreConfigBase, StoreContext
+
+__all__ = ["SCHEMA", "SqliteStore"]
+
+SCHEMA = """
+CREATE TABLE IF NOT EXISTS readings (
+    probe TEXT NOT NULL, ts REAL NOT NULL, mv REAL, temp_c REAL, ph REAL,
+    neutral_ph REAL, neutral_dev REAL, quality TEXT NOT NULL,
+    UNIQUE (probe, ts)
+);
+CREATE TABLE IF NOT EXISTS alerts (
+    id INTEGER PRIMARY KEY, alarm_id TEXT NOT NULL, rule TEXT NOT NULL, probe TEXT NOT NULL,
+    quantity TEXT, limit_name TEXT, event TEXT NOT NULL, state TEXT NOT NULL, ts REAL NOT NULL,
+    value REAL, threshold REAL, severity TEXT, message TEXT,
+    UNIQUE (alarm_id, ts, event)
+);
+CREATE INDEX IF NOT EXISTS alerts_ts ON alerts (ts);
+CREATE TABLE IF NOT EXISTS calibrations (
+    id INTEGER PRIMARY KEY, probe TEXT NOT NULL, ts REAL NOT NULL,
+    offset_mv REAL NOT NULL, slope_pct REAL NOT NULL, zero_ph REAL NOT NULL,
+    accepted INTEGER NOT NULL DEFAULT 1, detail TEXT
+);
+CREATE INDEX IF NOT EXISTS calibrations_probe_ts ON calibrations (probe, ts);
+CREATE TABLE IF NOT EXISTS quarantine (
+    id INTEGER PRIMARY KEY, source TEXT NOT NULL, reason TEXT NOT NULL, raw TEXT NOT NULL,
+    received_ts REAL NOT NULL
+);
+"""
+
+
+_ALERT_INSERT = (
+    "INSERT OR IGNORE INTO alerts (alarm_id, rule, probe, quantity, limit_name, event, "
+    "state, ts, value, threshold, severity, message) VALUES (?,?,?,?,?,?,?,?,?,?,?,?)"
+)
+_CALIBRATION_INSERT = (
+    "INSERT INTO calibrations (probe, ts, offset_mv, slope_pct, zero_ph, accepted, detail) "
+    "VALUES (?,?,?,?,?,?,?)"
+)
+
+
+class SqliteStoreConfig(StoreConfigBase):
+    type: Literal["sqlite"] = "sqlite"
+    path: str = "data/probeflow.sqlite"
+    synchronous: Literal["normal", "full"] = "normal"
+    busy_timeout_s: float = 10.0
+
+
+def _create_private(path: Path) -> None:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    if not path.exists():
+        fd = os.open(path, os.O_CREAT | os.O_WRONLY, 0o600)
+        os.close(fd)
+
+
+class SqliteStore:
+    """Readings, alerts, calibrations and quarantine in one SQLite file."""
+
+    Config = SqliteStoreConfig
+    durable = True  # the service acknowledges sources only after this store commits
+
+    def __init__(self, config: SqliteStoreConfig, context: StoreContext | None = None) -> None:
+        self.config = config
+        base = Path(context.base_dir if context is not None else ".")
+        path = Path(config.path)
+        self.path = path if path.is_absolute() else base / path
+        self._lock = threading.Lock()
+        try:
+            _create_private(self.path)
+            self._db = sqlite3.connect(self.path, timeout=config.busy_timeout_s,
+                                       isolation_level=None, check_same_thread=False)
+            self._db.execute("PRAGMA journal_mode=WAL")
+            self._db.execute(f"PRAGMA synchronous={config.synchronous.upper()}")
+            self._db.executescript(SCHEMA)
+        except (OSError, sqlite3.Error) as exc:
+            raise StoreError(f"cannot open the SQLite store {self.path}: {exc}") from exc
+
+    # -- Store protocol -----------------------------------------------------------
+    def write(self, batch: ProcessedBatch, alerts: Sequence[AlertEvent]) -> None:
+        rows = zip(batch.probe.tolist(), batch.ts.tolist(), batch.mv.tolist(),
+                   batch.temp_c.tolist(), batch.ph.tolist(), batch.neutral_ph.tolist(),
+                   batch.neutral_dev.tolist(), [QUALITY_NAMES[q] for q in batch.quality.tolist()])
+        alert_rows = [(a.alarm_id, a.rule, a.probe, a.quantity, a.limit, a.event, a.state, a.ts,
+                       a.value, a.threshold, a.severity, a.message) for a in alerts]
+        self._transaction(
+            ("INSERT OR IGNORE INTO readings VALUES (?,?,?,?,?,?,?,?)", rows),
+            (_ALERT_INSERT, alert_rows),
+        )
+
+    def write_quarantine(self, items: Sequence[QuarantineItem]) -> None:
+        rows = [(i.source, i.reason, i.raw, i.received_ts) for i in items]
+        self._transaction(
+            ("INSERT INTO quarantine (source, reason, raw, received_ts) VALUES (?,?,?,?)", rows))
+
+    def flush(self) -> None:
+        """Nothing to do: every write is committed before it returns."""
+
+    def close(self) -> None:
+        with self._lock:
+            try:
+                self._db.close()
+            except sqlite3.Error as exc:
+                raise StoreError(f"closing the SQLite store {self.path} failed: {exc}") from exc
+
+    # -- calibrations (placeholder schema; the calibration workflow fills it) -----
+    def add_calibration(self, probe: str, ts: float, offset_mv: float, slope_pct: float,
+                        zero_ph: float, accepted: bool = True, detail: str = "") -> None:
+        self._transaction((_CALIBRATION_INSERT,
+                           [(probe, ts, offset_mv, slope_pct, zero_ph, int(accepted), detail)]))
+
+    def latest_calibration(self, probe: str) -> dict[str, Any] | None:
+        """The latest accepted calibration of ``probe`` (for ``calibration: store``)."""
+        with self._lock:
+            row = self._db.execute(
+                "SELECT ts, offset_mv, slope_pct, zero_ph FROM calibrations "
+                "WHERE probe = ? AND accepted = 1 ORDER BY ts DESC, id DESC LIMIT 1", (probe,),
+            ).fetchone()
+        if row is None:
+            return None
+        return {"ts": row[0], "offset_mv": row[1], "slope_pct": row[2], "zero_ph": row[3]}
+
+    def _transaction(self, *statements: tuple[str, Any]) -> None:
+        with self._lock:
+            try:
+                self._db.execute("BEGIN IMMEDIATE")
+                try:
+                    for sql, rows in statements:
+                        self._db.executemany(sql, rows)
+                    self._db.execute("COMMIT")
+                except BaseException:
+                    self._db.execute("ROLLBACK")
+                    raise
+            except sqlite3.Error as exc:
+                raise StoreError(f"writing to the SQLite store {self.path} failed: {exc}") from exc

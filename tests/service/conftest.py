@@ -1,0 +1,47 @@
+"""Fixtures for service tests: config files, recordings, a subprocess runner."""
+
+from __future__ import annotations
+
+import os
+import sys
+import textwrap
+from collections.abc import Callable
+from pathlib import Path
+
+import pytest
+
+PROBES_YAML = """\
+site: test-works
+probes:
+  - id: tank-3
+    calibration: {offset_mv: -3.1, slope_pct: 98.2, zero_ph: 7.0}
+  - id: tank-4
+    calibration: {offset_mv: 12.5, slope_pct: 94.0, zero_ph: 6.9}
+    fixed_temp_c: 18.0
+  - id: basin-1
+service:
+  batch_ms: 5
+"""
+
+
+
+@pytest.fixture
+def config_file(tmp_path: Path) -> Callable[..., Path]:
+    """Write (dedented) YAML to a temporary file; by default the three test probes."""
+
+    def write(extra: str = "", name: str = "probeflow.yaml", base: str = PROBES_YAML) -> Path:
+        path = tmp_path / name
+        path.write_text(base + textwrap.dedent(extra), encoding="utf-8")
+        return path
+
+    return write
+
+
+@pytest.fixture
+def cli() -> list[str]:
+    return [sys.executable, "-m", "probeflow"]
+
+
+@pytest.fixture
+def cli_env() -> dict[str, str]:
+    return {**os.environ, "PYTHONUNBUFFERED": "1"}
