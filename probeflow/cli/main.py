@@ -22,17 +22,42 @@ COMMANDS: dict[str, str] = {
     "check": "check",
     "demo": "demo",
     "simulate": "simulate",
+    "backtest": "backtest",
+    "alarms": "alarms",
+    "ack": "ack",
+    "calibrate": "calibrate",
+    "calibrations": "calibrations",
+    "maintenance": "maintenance",
+    "grab": "grab",
+    "status": "status",
+    "report": "report",
 }
 
 
-def build_parser() -> argparse.ArgumentParser:
+def _wanted(argv: Sequence[str]) -> list[str]:
+    """The sub-command named on the command line, or every one (for --help)."""
+    for token in argv:
+        if token in COMMANDS:
+            return [token]
+        if not token.startswith("-"):
+            break
+    return list(COMMANDS)
+
+
+def build_parser(argv: Sequence[str] | None = None) -> argparse.ArgumentParser:
+    """The argument parser; only the chosen sub-command's module is imported."""
     parser = argparse.ArgumentParser(
         prog="probeflow",
         description="pH from electrode mV and temperature: conversion, alarms and a lossless record.",
     )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
-    for name, module_name in COMMANDS.items():
+    names = _wanted(sys.argv[1:] if argv is None else argv)
+    for name in COMMANDS:
+        if name not in names:
+            sub.add_parser(name)  # listed, not loaded
+            continue
+        module_name = COMMANDS[name]
         try:
             module = importlib.import_module(f"probeflow.cli.{module_name}")
         except ModuleNotFoundError as exc:
@@ -46,7 +71,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    parser = build_parser()
+    parser = build_parser(argv)
     args = parser.parse_args(argv)
     try:
         return int(args._run(args))
