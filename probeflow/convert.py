@@ -88,18 +88,7 @@ class Converter:
         self._lock = threading.Lock()
         n = len(probes)
         cal = [p.calibration for p in probes]
-        self._compensate = None
-        if any(p.temp_comp is not None for p in probes):
-            from probeflow import chemistry
-
-            self._compensate = getattr(chemistry, "compensate_process_temperature", None)
-            if self._compensate is None:
-                bad = [f"probes[{i}].temp_comp" for i, p in enumerate(probes) if p.temp_comp]
-                raise ConfigError(
-                    f"{', '.join(bad)}: process temperature compensation is not available in "
-                    "this build of the chemistry core; remove temp_comp",
-                    problems=[(b, "not available in this build") for b in bad],
-                )
+        self._compensate = any(p.temp_comp is not None for p in probes)
         segments: dict[int, tuple[_Segment, ...]] = {
             i: (_Segment(-math.inf, c.offset_mv, c.slope_pct, c.zero_ph, True),)
             if c is not None else (_Segment(-math.inf, *IDEAL_CALIBRATION, False),)
@@ -234,13 +223,17 @@ class Converter:
         ph = np.asarray(ph, dtype=np.float64)
         pn = np.asarray(pn, dtype=np.float64)
         dev = np.asarray(dev, dtype=np.float64)
-        if self._compensate is not None:
+        if self._compensate:
+            # Process (solution) temperature compensation refers the reported pH to
+            # the probe's reference temperature.  neutral_dev stays the deviation of
+            # the liquid as it is, at its own temperature, from neutrality there.
+            from probeflow.chemistry import compensate_to_reference
+
             coef = p.comp_coef[safe]
             comp = ~np.isnan(coef)
             if comp.any():
-                ph[comp] = self._compensate(ph[comp], temp[comp], p.comp_ref_c[safe][comp], coef[comp])
-                dev[comp] = ph[comp] - pn[comp]
-
+                ph[comp] = compensate_to_reference(ph[comp], temp[comp], coef[comp],
+                                                   p.comp_ref_c[safe][comp])
         quality = np.zeros(n, dtype=np.uint8)
         quality[~calibrated] = Quality.UNCALIBRATED
         quality[~temperature_in_range(temp)] = Quality.TEMP_FAULT

@@ -77,3 +77,19 @@ def test_distinct_pressures_use_each_probes_pressure():
                                                                [150.0, 150.0]))
     assert out.neutral_ph[0] == convert_readings(0.0, 150.0, pressure_kpa=101.325).neutral_ph
     assert out.neutral_ph[1] == convert_readings(0.0, 150.0, pressure_kpa=5000.0).neutral_ph
+
+
+def test_process_temperature_compensation_refers_ph_to_reference():
+    """pH_ref = pH - coefficient * (t - t_ref) (linear solution coefficient; common practice,
+    no source).  neutral_dev stays the liquid's own deviation at its temperature."""
+    probes = [
+        ProbeConfig(id="hot", calibration={"offset_mv": 0.0, "slope_pct": 100.0, "zero_ph": 7.0},
+                    temp_comp={"reference_c": 25.0, "coefficient_ph_per_c": -0.03}),
+        ProbeConfig(id="plain", calibration={"offset_mv": 0.0, "slope_pct": 100.0, "zero_ph": 7.0}),
+    ]
+    batch = ReadingBatch.from_columns(["hot", "plain"], [1.7e9, 1.7e9], [-50.0, -50.0], [45.0, 45.0])
+    out = Converter(probes).convert(batch)
+    raw = convert_readings(-50.0, 45.0, 0.0, 100.0, 7.0)
+    assert out.ph[1] == raw.ph
+    assert out.ph[0] == pytest.approx(raw.ph + 0.03 * 20.0, abs=1e-12)
+    assert out.neutral_dev[0] == pytest.approx(raw.neutral_dev, abs=1e-12)
