@@ -149,6 +149,9 @@ class VictoriaMetrics(_Server):
             "-search.latencyOffset=0s",
             "-search.disableCache",
             "-loggerLevel=ERROR",
+            # Keep one sample per series and timestamp, as InfluxDB does with a
+            # rewritten point, so idempotent re-sends can be counted.
+            "-dedup.minScrapeInterval=1ms",
         ]
 
     def flush(self) -> None:
