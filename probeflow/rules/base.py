@@ -14,7 +14,7 @@ from typing import Any, Protocol, runtime_checkable
 from probeflow.batch import ProcessedBatch
 from probeflow.events import AlertEvent
 
-__all__ = ["RuleEngine"]
+__all__ = ["Rule", "RuleEngine"]
 
 
 @runtime_checkable
@@ -25,5 +25,26 @@ class RuleEngine(Protocol):
 
     def state(self) -> dict[str, Any]:
         """JSON-serialisable state to persist."""
+
+    def restore(self, state: dict[str, Any]) -> None: ...
+
+
+@runtime_checkable
+class Rule(Protocol):
+    """One configured rule inside the engine: turns grouped readings into condition changes.
+
+    ``evaluate`` and ``tick`` return :class:`~probeflow.rules.lifecycle.Transition`
+    objects (condition became active / returned); the engine's alarm book turns
+    them into ISA-18.2 alert events.
+    """
+
+    id: str
+    kind: str
+
+    def evaluate(self, batch: Any) -> list[Any]: ...
+
+    def tick(self, now: float) -> list[Any]: ...
+
+    def state(self) -> dict[str, Any]: ...
 
     def restore(self, state: dict[str, Any]) -> None: ...

@@ -1,0 +1,349 @@
+"""The ``rules:`` section of the config, as typed pydantic models.
+
+Every sub-section is optional and defaults to empty; unknown keys are
+rejected with the key named.  The plain form of a band rule works as written::
+
+    rules:
+      bands:
+        - id: outfall-ph
+          probes: ["out-*"]
+          quantity: ph
+          low: 6.5
+          high: 8.5
+          deadband: 0.1
+          on_delay_s: 30
+          off_delay_s: 20
+
+A limit is a number, or the richer form ``{value: 8.5, severity: high}``.
+
+Defaults marked "common practice, no source" are starting points an operator
+should tune for the site; alerts support operators, they are not a safety
+system.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from itertools import pairwise
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
+
+from probeflow.errors import ConfigError
+
+__all__ = [
+    "BAND_LIMITS",
+    "BandRuleConfig",
+    "DiagnosticsConfig",
+    "DriftRuleConfig",
+    "FlatlineConfig",
+    "LimitSpec",
+    "MvRangeConfig",
+    "NoiseConfig",
+    "RateOfChangeRuleConfig",
+    "RedundancyRuleConfig",
+    "RulesConfig",
+    "Severity",
+    "StaleConfig",
+    "TempFaultConfig",
+    "parse_rules_config",
+]
+
+Severity = Literal["low", "medium", "high", "critical"]
+Quantity = Literal["ph", "neutral_dev", "temp_c", "mv"]
+
+BAND_LIMITS: tuple[str, ...] = ("low_low", "low", "high", "high_high")
+"""Limit names of a band rule, lowest first."""
+
+DEFAULT_SEVERITY: dict[str, Severity] = {
+    "low_low": "high", "low": "medium", "high": "medium", "high_high": "high",
+}
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+def _finite(value: float, what: str) -> float:
+    if not math.isfinite(value):
+        raise ValueError(f"{what} must be a finite number, got {value}")
+    return value
+
+
+class LimitSpec(_Strict):
+    """A limit with its own severity: ``{value: 8.5, severity: high}``."""
+
+    value: float
+    severity: Severity | None = None
+
+    @field_validator("value")
+    @classmethod
+    def _value_finite(cls, v: float) -> float:
+        return _finite(v, "a limit value")
+
+
+def _non_empty_ids(values: list[str], what: str) -> list[str]:
+    for v in values:
+        if not v.strip():
+            raise ValueError(f"{what} must not contain an empty name")
+    return values
+
+
+class BandRuleConfig(_Strict):
+    """Out-of-band rule on one quantity for every probe matching ``probes`` (globs)."""
+
+    id: str = Field(min_length=1)
+    probes: list[str] = Field(min_length=1)
+    quantity: Quantity = "ph"
+    low_low: float | LimitSpec | None = None
+    low: float | LimitSpec | None = None
+    high: float | LimitSpec | None = None
+    high_high: float | LimitSpec | None = None
+    deadband: float = Field(default=0.0, ge=0.0)
+    on_delay_s: float = Field(default=0.0, ge=0.0)
+    off_delay_s: float = Field(default=0.0, ge=0.0)
+    severity: Severity | None = None
+
+    @field_validator("probes")
+    @classmethod
+    def _probes(cls, v: list[str]) -> list[str]:
+        return _non_empty_ids(v, "probes")
+
+    @field_validator("low_low", "low", "high", "high_high")
+    @classmethod
+    def _limit_finite(cls, v: float | LimitSpec | None) -> float | LimitSpec | None:
+        if isinstance(v, float):
+            _finite(v, "a limit")
+        return v
+
+    @field_validator("deadband", "on_delay_s", "off_delay_s")
+    @classmethod
+    def _param_finite(cls, v: float) -> float:
+        return _finite(v, "this setting")
+
+    @model_validator(mode="after")
+    def _limits_ordered(self) -> BandRuleConfig:
+        given = [(name, self.limit_value(name)) for name in BAND_LIMITS]
+        present = [(n, v) for n, v in given if v is not None]
+        if not present:
+            raise ValueError("a band rule needs at least one of low_low, low, high, high_high")
+        for (n1, v1), (n2, v2) in pairwise(present):
+            if v1 is not None and v2 is not None and v1 > v2:
+                raise ValueError(f"limits out of order: {n1} ({v1}) is above {n2} ({v2})")
+        return self
+
+    def limit_value(self, name: str) -> float | None:
+        spec = getattr(self, name)
+        if spec is None:
+            return None
+        return float(spec.value) if isinstance(spec, LimitSpec) else float(spec)
+
+    def limit_severity(self, name: str) -> Severity:
+        spec = getattr(self, name)
+        if isinstance(spec, LimitSpec) and spec.severity is not None:
+            return spec.severity
+        return self.severity or DEFAULT_SEVERITY[name]
+
+
+class RateOfChangeRuleConfig(_Strict):
+    """|d quantity/dt| (least-squares slope over ``window_s``) above ``limit_per_min``."""
+
+    id: str = Field(min_length=1)
+    probes: list[str] = Field(min_length=1)
+    quantity: Quantity = "ph"
+    limit_per_min: float = Field(gt=0.0)
+    window_s: float = Field(default=60.0, gt=0.0)
+    min_points: int = Field(default=3, ge=2)
+    deadband: float = Field(default=0.0, ge=0.0)
+    on_delay_s: float = Field(default=0.0, ge=0.0)
+    off_delay_s: float = Field(default=0.0, ge=0.0)
+    severity: Severity = "medium"
+
+    @field_validator("probes")
+    @classmethod
+    def _probes(cls, v: list[str]) -> list[str]:
+        return _non_empty_ids(v, "probes")
+
+
+class StaleConfig(_Strict):
+    """No reading for ``after_s`` seconds (300 s: common practice, no source)."""
+
+    enabled: bool = True
+    after_s: float = Field(default=300.0, gt=0.0)
+    severity: Severity = "medium"
+
+
+class FlatlineConfig(_Strict):
+    """mV spread over ``window_s`` below ``min_spread_mv``: a coated, dry or frozen electrode.
+
+    Defaults 1800 s and 0.1 mV: common practice, no source.
+    """
+
+    enabled: bool = True
+    window_s: float = Field(default=1800.0, gt=0.0)
+    min_spread_mv: float = Field(default=0.1, gt=0.0)
+    severity: Severity = "medium"
+
+
+class NoiseConfig(_Strict):
+    """mV spread over ``window_s`` above ``max_spread_mv``: a noisy or cracked electrode, ground loop.
+
+    Defaults 60 s and 20 mV: common practice, no source.
+    """
+
+    enabled: bool = True
+    window_s: float = Field(default=60.0, gt=0.0)
+    max_spread_mv: float = Field(default=20.0, gt=0.0)
+    on_delay_s: float = Field(default=0.0, ge=0.0)
+    severity: Severity = "medium"
+
+
+class MvRangeConfig(_Strict):
+    """mV outside what a glass electrode can give.
+
+    Active while readings carry the conversion stage's ``mv_out_of_range``
+    quality, or lie outside ``min_mv``/``max_mv`` when those are set.
+    """
+
+    enabled: bool = True
+    min_mv: float | None = None
+    max_mv: float | None = None
+    on_delay_s: float = Field(default=0.0, ge=0.0)
+    severity: Severity = "high"
+
+
+class TempFaultConfig(_Strict):
+    """Quality ``temp_fault`` persisting ``for_s`` seconds (60 s: common practice, no source)."""
+
+    enabled: bool = True
+    for_s: float = Field(default=60.0, ge=0.0)
+    severity: Severity = "medium"
+
+
+class DiagnosticsConfig(_Strict):
+    """Per-probe diagnostics; each part on with its defaults unless ``enabled: false``."""
+
+    probes: list[str] = Field(default_factory=lambda: ["*"], min_length=1)
+    stale: StaleConfig = Field(default_factory=StaleConfig)
+    flatline: FlatlineConfig = Field(default_factory=FlatlineConfig)
+    noise: NoiseConfig = Field(default_factory=NoiseConfig)
+    mv_range: MvRangeConfig = Field(default_factory=MvRangeConfig)
+    temp_fault: TempFaultConfig = Field(default_factory=TempFaultConfig)
+
+
+class RedundancyRuleConfig(_Strict):
+    """Two or three probes on the same stream: deviation above ``limit`` for ``for_s``.
+
+    With three probes the odd one out is named by median voting.  Readings
+    older than ``max_age_s`` are not compared (60 s: common practice, no source).
+    """
+
+    id: str = Field(min_length=1)
+    probes: list[str] = Field(min_length=2, max_length=3)
+    quantity: Quantity = "ph"
+    limit: float = Field(gt=0.0)
+    for_s: float = Field(default=0.0, ge=0.0)
+    off_delay_s: float = Field(default=0.0, ge=0.0)
+    deadband: float = Field(default=0.0, ge=0.0)
+    max_age_s: float = Field(default=60.0, gt=0.0)
+    severity: Severity = "medium"
+
+    @field_validator("probes")
+    @classmethod
+    def _distinct(cls, v: list[str]) -> list[str]:
+        _non_empty_ids(v, "probes")
+        if len(set(v)) != len(v):
+            raise ValueError("redundant probes must be distinct probe ids")
+        if any(ch in p for p in v for ch in "*?["):
+            raise ValueError("redundant probes are exact probe ids, not globs")
+        return v
+
+
+class DriftRuleConfig(_Strict):
+    """Theil–Sen slope of a probe's value (or of a pair's difference) above ``limit_per_day``.
+
+    Readings are averaged into one point per ``step_s`` (60 s) and the slope
+    is computed every ``every_s`` (900 s) over the last ``window_s`` (1 day):
+    common practice, no source.
+    """
+
+    id: str = Field(min_length=1)
+    probes: list[str] | None = None
+    pair: list[str] | None = None
+    quantity: Quantity = "ph"
+    limit_per_day: float = Field(gt=0.0)
+    window_s: float = Field(default=86400.0, gt=0.0)
+    step_s: float = Field(default=60.0, gt=0.0)
+    every_s: float = Field(default=900.0, gt=0.0)
+    min_points: int = Field(default=30, ge=3)
+    min_span_fraction: float = Field(default=0.5, gt=0.0, le=1.0)
+    max_points: int = Field(default=500, ge=10)
+    severity: Severity = "low"
+
+    @model_validator(mode="after")
+    def _one_source(self) -> DriftRuleConfig:
+        if (self.probes is None) == (self.pair is None):
+            raise ValueError("give exactly one of 'probes' (globs) or 'pair' (two probe ids)")
+        if self.pair is not None and (len(self.pair) != 2 or self.pair[0] == self.pair[1]):
+            raise ValueError("'pair' must name two different probe ids")
+        if self.step_s > self.window_s:
+            raise ValueError("step_s must not exceed window_s")
+        return self
+
+
+class RulesConfig(_Strict):
+    """The whole ``rules:`` section."""
+
+    bands: list[BandRuleConfig] = Field(default_factory=list)
+    rate_of_change: list[RateOfChangeRuleConfig] = Field(default_factory=list)
+    diagnostics: DiagnosticsConfig | None = None
+    redundancy: list[RedundancyRuleConfig] = Field(default_factory=list)
+    drift: list[DriftRuleConfig] = Field(default_factory=list)
+
+    @model_validator(mode="after")
+    def _unique_ids(self) -> RulesConfig:
+        seen: set[str] = set()
+        for group in (self.bands, self.rate_of_change, self.redundancy, self.drift):
+            for rule in group:
+                if rule.id in seen:
+                    raise ValueError(f"rule id {rule.id!r} is used twice; ids must be unique")
+                seen.add(rule.id)
+        return self
+
+
+def _key_path(loc: tuple[int | str, ...], prefix: str) -> str:
+    out = prefix
+    for part in loc:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        elif part in ("float", "LimitSpec", "function-after[_limit_finite(), union[float,LimitSpec]]"):
+            continue
+        else:
+            out += f".{part}" if out else str(part)
+    return out
+
+
+def parse_rules_config(
+    data: Mapping[str, Any] | None, *, path: str | None = None, prefix: str = "rules"
+) -> RulesConfig:
+    """Validate a ``rules:`` mapping; a problem raises ConfigError naming file and key path."""
+    try:
+        return RulesConfig.model_validate(data or {})
+    except ValidationError as exc:
+        problems: list[tuple[str, str]] = []
+        for err in exc.errors():
+            key = _key_path(tuple(err["loc"]), prefix)
+            msg = str(err["msg"]).removeprefix("Value error, ")
+            value = err.get("input")
+            if err["type"] == "extra_forbidden":
+                msg = "unknown key (check the spelling)"
+            elif key.rsplit(".", 1)[-1] in BAND_LIMITS and err["type"] != "value_error":
+                msg = "expected a number or {value: NUMBER, severity: low|medium|high|critical}"
+            if value is not None and not isinstance(value, (dict, list)) and err["type"] != "missing":
+                msg = f"{msg}, got {value!r}"
+            if (key, msg) not in problems:
+                problems.append((key, msg))
+        where = f"{path}: " if path else ""
+        lines = "; ".join(f"{k}: {m}" for k, m in problems)
+        raise ConfigError(f"{where}{lines}", path=path, problems=problems) from exc
