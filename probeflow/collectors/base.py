@@ -47,6 +47,7 @@ class CollectorCounters:
     reconnects: int = 0
     connected: bool = False
     last_error: str = ""
+    session_lost: int = 0      # MQTT: the broker had no session where one was expected (data gap)
     lock: threading.Lock = field(default_factory=threading.Lock, repr=False)
 
     def add(self, **deltas: int) -> None:
@@ -66,6 +67,9 @@ class CollectorContext:
     counters: CollectorCounters = field(default_factory=CollectorCounters)
     stop_event: threading.Event = field(default_factory=threading.Event)
     log: Any = None
+    on_session_lost: Callable[[str, str], None] | None = None
+    """Called as ``(collector_name, detail)`` when a source may have lost readings
+    (an MQTT broker that forgot the persistent session): raise a data-gap alert."""
 
     def emit(self, batch: ReadingBatch) -> None:
         if len(batch):
