@@ -43,7 +43,16 @@ class Log:
         child._lock = self._lock
         return child
 
-    def _emit(self, level: str, event: str, fields: dict[str, Any]) -> None:
+    def _emit(self, level: str, event: str, args: tuple[Any, ...], fields: dict[str, Any]) -> None:
+        if args:
+            # A plugin written for the standard library's logging style:
+            # log.warning("%d points queued", n).  Keep its text as the message.
+            try:
+                message = event % args
+            except (TypeError, ValueError):
+                message = " ".join([event, *map(str, args)])
+            fields = {"message": message, **fields}
+            event = "plugin_log"
         record = {"ts": rfc3339(time.time()), "level": level, "event": event, **self.bound, **fields}
         if self.fmt == "json":
             line = orjson.dumps(record, default=str).decode()
@@ -56,17 +65,26 @@ class Log:
             except (OSError, ValueError):
                 pass  # stderr closed: nowhere left to report to
 
-    def debug(self, event: str, **fields: Any) -> None:
+    # Each method takes either ``event, **fields`` (structured) or the standard
+    # library's ``message, *args`` form, so plugins may use either.
+    def debug(self, event: str, *args: Any, **fields: Any) -> None:
         pass
 
-    def info(self, event: str, **fields: Any) -> None:
-        self._emit("info", event, fields)
+    def info(self, event: str, *args: Any, **fields: Any) -> None:
+        self._emit("info", event, args, fields)
 
-    def warning(self, event: str, **fields: Any) -> None:
-        self._emit("warning", event, fields)
+    def warning(self, event: str, *args: Any, **fields: Any) -> None:
+        self._emit("warning", event, args, fields)
 
-    def error(self, event: str, **fields: Any) -> None:
-        self._emit("error", event, fields)
+    def error(self, event: str, *args: Any, **fields: Any) -> None:
+        self._emit("error", event, args, fields)
+
+    def exception(self, event: str, *args: Any, **fields: Any) -> None:
+        """Like :meth:`error`, adding the type of the exception being handled."""
+        exc = sys.exc_info()[1]
+        if exc is not None:
+            fields = {"error": type(exc).__name__, **fields}
+        self._emit("error", event, args, fields)
 
 
 class RateLimiter:

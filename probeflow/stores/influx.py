@@ -371,11 +371,14 @@ class InfluxStore:
     """
 
     Config = InfluxStoreConfig
+    durable = True  # sources are acked only once the points are in the outbox; block back-pressures
 
     def __init__(self, config: InfluxStoreConfig, context: StoreContext) -> None:
         self.config = config
         self.site = context.site or ""
-        self.log: logging.Logger = context.log or logging.getLogger("probeflow.stores.influx")
+        # printf-style log calls below: both the standard library's loggers and the
+        # service's structured Log (probeflow.service.log) take them.
+        self.log = context.log if context.log is not None else logging.getLogger(__name__)
         token = resolve_token(config)
         path = Path(config.outbox_path) if config.outbox_path else Path(
             "data", f"influx-{config.name}-outbox.sqlite" if config.name else "influx-outbox.sqlite"
