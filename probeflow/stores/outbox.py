@@ -210,13 +210,15 @@ class Outbox:
             while self._bytes > 0 and self._bytes + size > self.quota_bytes and not self._closed:
                 if waited_since is None:
                     waited_since = time.monotonic()
+                    if not self._quota_log_due():
+                        continue
                     self.log.warning(
                         "influx outbox %s is full (%d of %d bytes): holding new readings until "
                         "the database accepts the queued ones",
                         self.path, self._bytes, self.quota_bytes,
                     )
                 self._state.wait(1.0)
-        if waited_since is not None:
+        if waited_since is not None and time.monotonic() - waited_since >= 1.0:
             self.log.warning(
                 "influx outbox %s has room again after %.1f s", self.path, time.monotonic() - waited_since
             )
@@ -236,11 +238,24 @@ class Outbox:
         if dropped_lines:
             with self._state:
                 self._dropped += dropped_lines
+            if not self._quota_log_due():
+                return  # counted; the next report (within a minute) gives the running total
             self.log.warning(
                 "influx outbox %s reached its quota of %d bytes: deleted the %d oldest unsent "
                 "points (on_quota: drop_oldest); %d lost since start",
                 self.path, self.quota_bytes, dropped_lines, self._dropped,
             )
+
+    QUOTA_LOG_INTERVAL_S = 60.0
+    """At most one quota log line (full, dropping) per this interval; counts stay exact."""
+
+    def _quota_log_due(self) -> bool:
+        now = time.monotonic()
+        last = getattr(self, "_last_quota_log", None)
+        if last is not None and now - last < self.QUOTA_LOG_INTERVAL_S:
+            return False
+        self._last_quota_log = now
+        return True
 
     def _check_quota_warning(self) -> None:
         if not self.quota_bytes:

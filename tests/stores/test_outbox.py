@@ -84,8 +84,23 @@ def test_drop_oldest_counts_and_reports_every_lost_line(tmp_path, caplog):
     kept = [r.body.decode().split(",")[1].split(" ")[0] for r in box.oldest(1000)]
     assert kept == ["probe=p2", "probe=p3", "probe=p4"]
     assert "deleted the 10 oldest unsent points" in caplog.text
-    assert "20 lost since start" in caplog.text
+    assert "10 lost since start" in caplog.text
     assert "% full" in caplog.text  # the early warning came first
+    # one drop report per minute, not one per append: the count stays exact
+    assert caplog.text.count("oldest unsent points") == 1
+    box.close()
+
+
+def test_drop_reports_carry_the_running_total(tmp_path, caplog):
+    chunk = lines_for("p0", 10)
+    size = len("\n".join(chunk).encode())
+    box = Outbox(tmp_path / "o.sqlite", quota_bytes=3 * size, on_quota="drop_oldest",
+                 log=logging.getLogger("test.outbox"))
+    box.QUOTA_LOG_INTERVAL_S = 0.0  # report every drop
+    with caplog.at_level(logging.WARNING, logger="test.outbox"):
+        for k in range(5):
+            box.append(lines_for(f"p{k}", 10), "ms")
+    assert "10 lost since start" in caplog.text and "20 lost since start" in caplog.text
     box.close()
 
 
