@@ -31,6 +31,7 @@ import math
 import threading
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
+from itertools import repeat
 
 import numpy as np
 
@@ -174,8 +175,8 @@ class Converter:
 
         p = self._params  # one consistent snapshot
         n = len(batch)
-        lookup = p.index.get
-        idx = np.fromiter((lookup(x, -1) for x in batch.probe.tolist()), dtype=np.intp, count=n)
+        idx = np.fromiter(map(p.index.get, batch.probe.tolist(), repeat(-1, n)), dtype=np.intp,
+                          count=n)
         unknown = idx < 0
         any_unknown = bool(unknown.any())
         safe = np.where(unknown, 0, idx) if any_unknown else idx

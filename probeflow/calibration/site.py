@@ -5,8 +5,9 @@
   service does).
 * The calibration in effect for a probe is its latest accepted one in the
   store, else the ``calibration:`` given for it in the config, else none.
-* Acceptance limits come from a small YAML file (``--limits``), flat or per
-  probe, because the config's probe section has no place for them::
+* Acceptance limits: the defaults of :class:`AcceptanceLimits`, overridden by
+  the probe's ``acceptance:`` in the config, overridden in turn by a limits
+  file (``--limits``), flat or per probe::
 
       slope_min_pct: 92          # applies to every probe
       probes:
@@ -64,10 +65,20 @@ def calibration_in_effect(store: CalibrationStore, probe: ProbeConfig | str,
     return None
 
 
-def load_limits(path: str | Path | None, probe: str) -> AcceptanceLimits:
-    """Acceptance limits for ``probe`` from a limits file (module docstring); defaults without one."""
+def load_limits(path: str | Path | None, probe: str | ProbeConfig) -> AcceptanceLimits:
+    """Acceptance limits for ``probe`` (module docstring): defaults, then the probe's
+    ``acceptance:`` (when ``probe`` is its ProbeConfig), then the limits file."""
+    merged: dict[str, Any] = {}
+    key = "acceptance"
+    if isinstance(probe, ProbeConfig):
+        if probe.acceptance is not None:
+            merged.update(probe.acceptance.given())
+            key = f"probes.{probe.id}.acceptance"
+        probe_id = probe.id
+    else:
+        probe_id = probe
     if path is None:
-        return AcceptanceLimits()
+        return AcceptanceLimits.from_mapping(merged, key=key)
     p = Path(path)
     try:
         doc: Any = yaml.safe_load(p.read_text(encoding="utf-8"))
@@ -84,10 +95,11 @@ def load_limits(path: str | Path | None, probe: str) -> AcceptanceLimits:
     if not isinstance(per_probe, dict):
         raise ConfigError(f"{p}: probes: expected a mapping of probe id to limits", path=str(p),
                           problems=[("probes", "not a mapping")])
-    merged = {k: v for k, v in doc.items() if k != "probes"}
-    own = per_probe.get(probe) or {}
+    merged.update({k: v for k, v in doc.items() if k != "probes"})
+    own = per_probe.get(probe_id) or {}
     if not isinstance(own, dict):
-        raise ConfigError(f"{p}: probes.{probe}: expected a mapping of limits", path=str(p),
-                          problems=[(f"probes.{probe}", "not a mapping")])
+        raise ConfigError(f"{p}: probes.{probe_id}: expected a mapping of limits", path=str(p),
+                          problems=[(f"probes.{probe_id}", "not a mapping")])
     merged.update(own)
-    return AcceptanceLimits.from_mapping(merged, path=str(p), key=f"probes.{probe}" if own else "limits")
+    return AcceptanceLimits.from_mapping(merged, path=str(p),
+                                         key=f"probes.{probe_id}" if own else "limits")

@@ -42,6 +42,7 @@ __all__ = [
     "GrabSample",
     "MaintenancePeriod",
     "PointDetail",
+    "create_calibration_tables",
 ]
 
 CALIBRATION_KINDS = ("buffer", "grab_offset", "manual")
@@ -74,6 +75,12 @@ CREATE INDEX IF NOT EXISTS maintenance_open ON maintenance (ended, probe);
 """
 
 _BUSY_TIMEOUT_S = 10.0
+
+
+def create_calibration_tables(db: sqlite3.Connection) -> None:
+    """Create this store's tables in ``db`` if missing (the sqlite store calls it too,
+    so the service's file holds readings and calibrations alike)."""
+    db.executescript(SCHEMA)
 
 
 @dataclass(frozen=True)
@@ -193,14 +200,18 @@ def _finite_or_none(value: float | None) -> float | None:
 class CalibrationStore:
     """Calibrations, grab samples and maintenance periods in the service's SQLite file."""
 
-    def __init__(self, path: str | Path) -> None:
+    def __init__(self, path: str | Path, *, any_thread: bool = False) -> None:
+        """``any_thread``: the store may be used from another thread than the one that
+        opened it (one at a time; the running service opens it at start and polls it
+        on its pipeline thread)."""
         self.path = Path(path)
         try:
             _create_private(self.path)
-            self._db = sqlite3.connect(self.path, timeout=_BUSY_TIMEOUT_S, isolation_level=None)
+            self._db = sqlite3.connect(self.path, timeout=_BUSY_TIMEOUT_S, isolation_level=None,
+                                       check_same_thread=not any_thread)
             self._db.execute("PRAGMA journal_mode=WAL")
             self._db.execute("PRAGMA synchronous=FULL")
-            self._db.executescript(SCHEMA)
+            create_calibration_tables(self._db)
         except (OSError, sqlite3.Error) as exc:
             raise StoreError(f"cannot open the calibration store {self.path}: {exc}") from exc
 
@@ -358,6 +369,15 @@ class CalibrationStore:
         rows = self._query("SELECT id, probe, ts, lab_ph, lab_temp_c, online_ph, difference, applied, "
                            "note FROM grab_samples WHERE probe = ? ORDER BY ts, id", (probe,))
         return [GrabSample(r[0], r[1], r[2], r[3], r[4], r[5], r[6], bool(r[7]), r[8]) for r in rows]
+
+    def max_grab_id(self) -> int:
+        row = self._query("SELECT max(id) FROM grab_samples")
+        return int(row[0][0] or 0)
+
+    def probes_with_grab_after(self, last_id: int) -> list[str]:
+        """Probes with a grab sample of id > last_id (for the running service's checks)."""
+        return [r[0] for r in self._query("SELECT DISTINCT probe FROM grab_samples WHERE id > ? "
+                                          "ORDER BY probe", (last_id,))]
 
     # -- maintenance ----------------------------------------------------------------------
     def _periods(self, where: str, params: Sequence[Any]) -> list[MaintenancePeriod]:

@@ -54,8 +54,9 @@ class CalibrationUpdate:
 class CalibrationWatcher:
     """Cheap polling of the calibration store for the running service."""
 
-    def __init__(self, db_path: str | Path, *, clock: Callable[[], float] = time.time) -> None:
-        self.store = CalibrationStore(db_path)
+    def __init__(self, db_path: str | Path, *, clock: Callable[[], float] = time.time,
+                 any_thread: bool = False) -> None:
+        self.store = CalibrationStore(db_path, any_thread=any_thread)
         self._clock = clock
         self._last_id: int | None = None
         self._seen_maintenance: set[str] = set()

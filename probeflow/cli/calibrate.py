@@ -117,7 +117,7 @@ def _scripted(args: argparse.Namespace) -> int:
     config, store = _open(args, ("stores",))
     with store:
         probe = probe_config(config, args.probe)
-        limits = load_limits(args.limits, args.probe)
+        limits = load_limits(args.limits, probe)
         buffers = buffer_set_named(set_name)
         previous = calibration_in_effect(store, probe)
         details = [PointDetail(resolve_point(s, buffers, previous), s.stable, s.drift_mv_per_min)
@@ -278,7 +278,7 @@ def _interactive(args: argparse.Namespace, term: Terminal) -> int:
     config, store = _open(args, sections)
     with store:
         probe = probe_config(config, args.probe)
-        limits = load_limits(args.limits, args.probe)
+        limits = load_limits(args.limits, probe)
         previous = calibration_in_effect(store, probe)
         buffers = _choose_buffer_set(term, args.buffer_set)
         criterion = StabilityCriterion(args.drift_mv_per_min, args.window_s,

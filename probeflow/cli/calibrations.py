@@ -38,8 +38,7 @@ def _num(v: float | None, fmt: str) -> str:
 
 def run(args: argparse.Namespace) -> int:
     config = load_config(args.config, sections=("stores",), require_secrets=False)
-    probe_config(config, args.probe)
-    limits = load_limits(args.limits, args.probe)
+    limits = load_limits(args.limits, probe_config(config, args.probe))
     path = Path(args.db) if args.db else store_path(config)
     with CalibrationStore(path) as store:
         records = store.history(args.probe)

@@ -110,7 +110,7 @@ def run(args: argparse.Namespace) -> int:
         elif args.apply and online is not None:
             current = calibration_in_effect(store, probe, at=at) or Calibration(0.0, 100.0, 7.0)
             corrected = standardise(current, online, args.lab_ph)
-            verdict = judge(corrected, load_limits(args.limits, args.probe))
+            verdict = judge(corrected, load_limits(args.limits, probe))
             correction_id = store.record_calibration(
                 args.probe, corrected, verdict, kind="grab_offset", ts=now, applies_from=now,
                 who=args.who, note=args.note or f"grab sample at {rfc3339(at)}, lab pH {args.lab_ph:g}")

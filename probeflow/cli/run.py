@@ -15,6 +15,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from probeflow.config import load_config
+    from probeflow.service.metrics import MetricsExporter
     from probeflow.service.pipeline import build_service
     config = load_config(args.config)
     log = make_log(config.service.log_format)
@@ -22,8 +23,18 @@ def run(args: argparse.Namespace) -> int:
         log.warning("config_warning", detail=warning)
     if not config.collectors:
         log.warning("no_collectors", hint="the config has no collectors, nothing will be read")
-    service = build_service(config, log=log, retry_collectors=True)
-    with stop_on_signals(service):
-        stats = service.run()
+    service = build_service(config, log=log, retry_collectors=True, live=True)
+    metrics = MetricsExporter(service, host=config.service.metrics.host,
+                              port=config.service.metrics.port, log=log)
+    try:
+        metrics.start()
+    except BaseException:
+        service.shutdown()  # close the stores that build_service opened
+        raise
+    try:
+        with stop_on_signals(service):
+            stats = service.run()
+    finally:
+        metrics.stop()
     print_stats(log, stats)
     return 0

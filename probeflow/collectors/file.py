@@ -7,8 +7,19 @@ never held back for a fuller batch.  Bad rows are quarantined with the reason
 (source ``file:<path>``).
 
 CSV: a header line naming the columns probe, ts, mv and optionally temp_c,
-ohms; empty cells are absent values.  Parquet: the same column names; ts may
-be a timestamp column, a number (epoch s) or RFC 3339 text.
+ohms; empty cells are absent values.  A CSV file is read line by line: a row
+is one line (a line break inside quotes is not supported: reading values never
+need one), so a stray or unclosed quote costs its own row, never the rows
+after it.  A row longer than ``max_line_bytes`` or not valid UTF-8 is
+quarantined (a too-long row keeps its first ``max_line_bytes`` bytes there).
+
+Parquet: the same column names; ts may be a timestamp column, a number (epoch
+s) or RFC 3339 text.  A value column stored as text is read cell by cell like
+CSV cells; a cell that is not a number, or a column of another type, puts its
+rows in quarantine with the reason.
+
+Every format: a time before 2000-01-01 or at/after ``latest_time`` (default
+2100-01-01T00:00:00Z, e.g. a corrupt 1e300 or year 9999) is quarantined.
 """
 
 from __future__ import annotations
@@ -18,16 +29,24 @@ import math
 import threading
 import time
 from collections.abc import Iterator
+from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any, Literal
+from typing import IO, Any, Literal
 
 import numpy as np
 import orjson
-from pydantic import Field
+from pydantic import AwareDatetime, Field, field_validator
 
 from probeflow.batch import ReadingBatch
 from probeflow.collectors.base import CollectorConfigBase, CollectorContext
-from probeflow.collectors.parse import DEFAULT_MAX_RECORD_BYTES, ParsedReadings, RecordParser
+from probeflow.collectors.parse import (
+    DEFAULT_MAX_RECORD_BYTES,
+    EARLIEST_TS,
+    LATEST_TS,
+    ParsedReadings,
+    RecordParser,
+    timestamp_from_value,
+)
 from probeflow.errors import CollectorError, ParseError
 
 __all__ = ["FileCollector", "FileCollectorConfig"]
@@ -40,8 +59,19 @@ class FileCollectorConfig(CollectorConfigBase):
     path: str
     format: Literal["auto", "jsonl", "csv", "parquet"] = "auto"
     speed: float = Field(default=0.0, ge=0.0)
-    batch_rows: int = Field(default=5000, ge=1)
-    max_line_bytes: int = DEFAULT_MAX_RECORD_BYTES
+    batch_rows: int = Field(default=50_000, ge=1)   # large: a fast replay commits in big transactions
+    max_line_bytes: int = Field(default=DEFAULT_MAX_RECORD_BYTES, ge=16)
+    latest_time: AwareDatetime = datetime.fromtimestamp(LATEST_TS, UTC)
+    """Rows stamped at or after this (RFC 3339 with a time zone) are quarantined
+    as "too far in the future"; rows before 2000-01-01 always are."""
+
+    @field_validator("latest_time")
+    @classmethod
+    def _after_earliest(cls, value: datetime) -> datetime:
+        if value.timestamp() <= EARLIEST_TS:
+            raise ValueError("latest_time must be after 2000-01-01T00:00:00Z "
+                             "(every earlier time is refused anyway)")
+        return value
 
 
 def _format_of(path: Path, given: str) -> str:
@@ -66,7 +96,7 @@ class FileCollector:
         self.path = Path(config.path)
         self.format = _format_of(self.path, config.format)
         self.parser = RecordParser(context.known_probes, max_bytes=config.max_line_bytes,
-                                   future_s=None)
+                                   future_s=None, latest_ts=config.latest_time.timestamp())
         self.source = f"file:{self.path}"
         self._done = threading.Event()
         self._thread = threading.Thread(target=self._run, name=f"file-{self.path.name}", daemon=True)
@@ -83,6 +113,12 @@ class FileCollector:
     @property
     def done(self) -> bool:
         return self._done.is_set()
+
+    @property
+    def clock_pace(self) -> float:
+        """Recorded time runs at this pace (0: as fast as possible); the service's
+        time-based rules then follow the recording's clock, not this computer's."""
+        return float(self.config.speed)
 
     # -- reading ------------------------------------------------------------------
     def _run(self) -> None:
@@ -128,26 +164,41 @@ class FileCollector:
                 yield self.parser.lines([ln.rstrip(b"\r\n") for ln in lines])
 
     def _csv(self) -> Iterator[ParsedReadings]:
-        with open(self.path, encoding="utf-8", errors="surrogateescape", newline="") as f:
-            reader = csv.reader(f)
-            header = next(reader, None)
-            if header is None:
+        limit = self.config.max_line_bytes
+        with open(self.path, "rb") as f:
+            lines = _bounded_lines(f, limit)
+            first = next(lines, None)
+            if first is None:
                 return
-            header = [h.strip() for h in header]
+            if first[1] > limit:
+                raise CollectorError(f"{self.path}: the CSV header line is longer than {limit} bytes")
+            try:
+                header = [h.strip() for h in _csv_cells(first[0].decode("utf-8-sig", "replace"))]
+            except ParseError as exc:
+                raise CollectorError(f"{self.path}: the CSV header line is unreadable: {exc.reason}") from None
             missing = {"probe", "ts", "mv"} - set(header)
             if missing:
                 raise CollectorError(f"{self.path}: the CSV header lacks {', '.join(sorted(missing))}")
+            width = len(header)
+            record = self.parser.record
             out = ParsedReadings()
-            for row in reader:
-                if not row or not any(cell.strip() for cell in row):
-                    continue
-                raw = ",".join(row)
+            for raw, length in lines:
                 try:
-                    if len(row) != len(header):
-                        raise ParseError(f"wrong number of columns: {len(row)}, the header has {len(header)}")
-                    out.add(self.parser.record(_csv_record(header, row)))
+                    if length > limit:
+                        raise ParseError(f"too long: {length} bytes, the limit is {limit}")
+                    try:
+                        text = raw.decode("utf-8")
+                    except UnicodeDecodeError as exc:
+                        raise ParseError(f"not valid UTF-8 text: byte {exc.start + 1} of the row "
+                                         "cannot be decoded") from None
+                    row = _csv_cells(text)
+                    if not any(cell.strip() for cell in row):
+                        continue
+                    if len(row) != width:
+                        raise ParseError(f"wrong number of columns: {len(row)}, the header has {width}")
+                    out.add(record(_csv_record(header, row)))
                 except ParseError as exc:
-                    out.rejects.append((exc.reason, raw.encode("utf-8", "surrogateescape")))
+                    out.rejects.append((exc.reason, raw))
                 if len(out) + len(out.rejects) >= _READ_CHUNK:
                     yield out
                     out = ParsedReadings()
@@ -167,6 +218,49 @@ class FileCollector:
         columns = [c for c in ("probe", "ts", "mv", "temp_c", "ohms") if c in names]
         for record_batch in pf.iter_batches(batch_size=65536, columns=columns):
             yield _parquet_chunk(record_batch, self.parser)
+
+
+def _bounded_lines(f: IO[bytes], limit: int) -> Iterator[tuple[bytes, int]]:
+    """``(line, length)`` for each line of ``f``, without its line ending.  A
+    line longer than ``limit`` bytes comes cut to its first ``limit`` bytes
+    (with its full length): the rest is skipped without holding it in memory."""
+    readline = f.readline
+    size = limit + 2   # room for the line ending (CR LF)
+    while True:
+        line = readline(size)
+        if not line:
+            return
+        if line[-1:] == b"\n" or len(line) < size:   # a whole line (the last may lack \n)
+            line = line.rstrip(b"\r\n")
+            yield line, len(line)
+            continue
+        length = len(line)
+        tail = line[-2:]
+        while True:
+            more = readline(1 << 16)
+            if not more:
+                break
+            length += len(more)
+            tail = (tail + more)[-2:]
+            if more[-1:] == b"\n":
+                break
+        if tail[-1:] == b"\n":   # the length of the row, without its line ending
+            length -= 2 if tail == b"\r\n" else 1
+        yield line[:limit], length
+
+
+def _csv_cells(text: str) -> list[str]:
+    """The cells of one CSV line.  Quotes follow the csv module (strict), within
+    this line only: a row with an unclosed or stray quote is refused alone."""
+    if '"' not in text:
+        return text.split(",")
+    try:
+        rows = list(csv.reader((text,), strict=True))
+    except csv.Error as exc:
+        raise ParseError(f"not valid CSV: {exc}") from None
+    if len(rows) != 1:
+        raise ParseError("not valid CSV: a line break inside the row")
+    return rows[0]
 
 
 def _csv_record(header: list[str], row: list[str]) -> dict[str, Any]:
@@ -203,20 +297,23 @@ def _parquet_chunk(record_batch: Any, parser: RecordParser) -> ParsedReadings:
         ts = ts.astype(np.float64) / 1e6
     elif pa.types.is_integer(ts_col.type) or pa.types.is_floating(ts_col.type):
         ts = ts_col.to_numpy(zero_copy_only=False).astype(np.float64)
-    else:
+    else:   # RFC 3339 text (or values of another type, each refused with its reason)
         ts = np.full(n, np.nan)
         for i, value in enumerate(ts_col.to_pylist()):
+            if value is None:
+                continue
             try:
-                ts[i] = parser.record({"probe": "-", "ts": value, "mv": 0.0})[1] if value is not None else np.nan
+                ts[i] = timestamp_from_value(value)
             except ParseError as exc:
                 reasons[i] = exc.reason
     cols = {}
     for name in ("mv", "temp_c", "ohms"):
         if name in table:
             col = table[name]
-            if not (pa.types.is_floating(col.type) or pa.types.is_integer(col.type)):
-                raise CollectorError(f"Parquet column {name} is {col.type}, not a number")
-            cols[name] = col.to_numpy(zero_copy_only=False).astype(np.float64)
+            if pa.types.is_floating(col.type) or pa.types.is_integer(col.type):
+                cols[name] = col.to_numpy(zero_copy_only=False).astype(np.float64)
+            else:
+                cols[name] = _parquet_numbers_from(col, name, reasons)
         else:
             cols[name] = np.full(n, np.nan)
 
@@ -233,8 +330,8 @@ def _parquet_chunk(record_batch: Any, parser: RecordParser) -> ParsedReadings:
     if known is not None:
         flag(np.array([p not in known for p in probe], dtype=bool) & ~not_text, "unknown probe")
     flag(~np.isfinite(ts), "ts is missing or not a finite number")
-    with np.errstate(invalid="ignore"):
-        flag(np.isfinite(ts) & (ts < 946684800.0), "ts is before the year 2000")
+    flag(np.isfinite(ts) & (ts < EARLIEST_TS), "ts is before the year 2000")
+    flag(np.isfinite(ts) & (ts >= parser.latest()), "ts is too far in the future")
     flag(~np.isfinite(cols["mv"]), "mv is missing or not a finite number")
     flag(np.isinf(cols["temp_c"]), "temp_c is not a finite number")
     flag(np.isinf(cols["ohms"]), "ohms is not a finite number")
@@ -252,6 +349,35 @@ def _parquet_chunk(record_batch: Any, parser: RecordParser) -> ParsedReadings:
                 reason = f"unknown probe: {probe[i]}"
             out.rejects.append((reason, orjson.dumps(rows[i], default=str)))
     return out
+
+
+def _parquet_numbers_from(col: Any, name: str, reasons: list[str | None]) -> np.ndarray:
+    """A Parquet value column that is not stored as numbers, as float64 (null
+    or an empty cell: NaN).  Text cells are read like CSV cells; a cell that is
+    not a number, or any value of a column of another type, gets its row a
+    reason in ``reasons`` (the first reason a row gets is kept)."""
+    import pyarrow as pa
+
+    if pa.types.is_dictionary(col.type):
+        col = col.dictionary_decode()
+    values = np.full(len(col), np.nan)
+    if pa.types.is_decimal(col.type):
+        return col.cast(pa.float64()).to_numpy(zero_copy_only=False).astype(np.float64)
+    if pa.types.is_string(col.type) or pa.types.is_large_string(col.type):
+        for i, cell in enumerate(col.to_pylist()):
+            if cell is None or not cell.strip():
+                continue
+            try:
+                values[i] = float(cell)
+            except ValueError:
+                if reasons[i] is None:
+                    reasons[i] = f"{name} is not a number: {cell[:40]!r}"
+        return values
+    valid = col.is_valid().to_numpy(zero_copy_only=False)
+    for i in np.flatnonzero(valid).tolist():
+        if reasons[i] is None:
+            reasons[i] = f"{name} is stored as {col.type}, not as a number"
+    return values
 
 
 def _slice(batch: ReadingBatch, start: int, end: int) -> ReadingBatch:

@@ -13,15 +13,22 @@ other keys are ignored.  Anything else raises :class:`ParseError` with a
 reason whose part before the first ``:`` is a stable kind (used to rate-limit
 logs).  Lines are decoded with orjson and appended straight into column lists,
 so no object is created per reading beyond the dict orjson returns.
+
+Fast path: a chunk of lines (or the records of one payload) is first checked
+column by column (the set of value types per field, then numpy range checks);
+when every record passes, the columns are taken as they are.  When any record
+fails, the chunk goes through the per-record path, which gives each reject
+its reason.  Both give the same readings (tested in tests/perf).
 """
 
 from __future__ import annotations
 
 import math
 import time
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime
+from itertools import repeat
 from typing import Any
 
 import numpy as np
@@ -33,9 +40,11 @@ from probeflow.errors import ParseError
 __all__ = [
     "DEFAULT_MAX_RECORD_BYTES",
     "EARLIEST_TS",
+    "LATEST_TS",
     "ParsedReadings",
     "RecordParser",
     "reason_kind",
+    "timestamp_from_value",
 ]
 
 DEFAULT_MAX_RECORD_BYTES = 65536
@@ -44,7 +53,16 @@ DEFAULT_MAX_RECORD_BYTES = 65536
 EARLIEST_TS = 946684800.0
 """2000-01-01T00:00:00Z: an earlier timestamp is taken as a clock fault."""
 
+LATEST_TS = 4102444800.0
+"""2100-01-01T00:00:00Z: a timestamp at or after this is taken as a clock or data
+fault by default (``RecordParser(latest_ts=...)``; a recording's collector sets
+it from its ``latest_time`` key).  Beyond year 9999 a time has no RFC 3339 form."""
+
 _NAN = math.nan
+_NUMBER_TYPES = frozenset({float, int})
+_OPTIONAL_TYPES = frozenset({float, int, type(None)})
+_FLOAT_ONLY = frozenset({float})
+_NONE_ONLY = frozenset({type(None)})
 
 
 def reason_kind(reason: str) -> str:
@@ -102,11 +120,21 @@ def _optional(value: Any, name: str) -> float:
 
 
 def _short(value: Any) -> str:
-    text = orjson.dumps(value, default=str).decode() if not isinstance(value, bytes) else repr(value)
+    """At most 40 characters showing ``value`` in a reason.  Text that is not
+    valid Unicode (surrogate escapes of undecodable bytes) is shown escaped."""
+    if isinstance(value, bytes):
+        text = repr(value)
+    else:
+        try:
+            text = orjson.dumps(value, default=str).decode()
+        except orjson.JSONEncodeError:
+            text = ascii(value)
     return text if len(text) <= 40 else text[:37] + "..."
 
 
 def _timestamp(value: Any) -> float:
+    """Epoch seconds of a JSON ``ts`` value (a finite number, or RFC 3339 text
+    with a time zone), else ParseError.  Range checks are the caller's."""
     kind = type(value)
     if kind is float or kind is int:
         if value - value == 0:
@@ -123,24 +151,56 @@ def _timestamp(value: Any) -> float:
     raise ParseError(f"ts is not epoch seconds or an RFC 3339 time: {_short(value)}")
 
 
+timestamp_from_value = _timestamp
+
+
+def _number_column(values: list[Any], optional: bool) -> list[float] | None:
+    """``values`` as floats when each is a finite JSON number (or null, if
+    ``optional``: taken as NaN), else None.  Used by the columnar fast path."""
+    kinds = set(map(type, values))
+    if not kinds <= (_OPTIONAL_TYPES if optional else _NUMBER_TYPES):
+        return None
+    if kinds == _NONE_ONLY:
+        return [_NAN] * len(values)   # the field is absent or null everywhere
+    try:
+        arr = np.array(values, dtype=np.float64)
+    except (OverflowError, TypeError, ValueError):
+        return None
+    if kinds == _FLOAT_ONLY:
+        return values if np.isfinite(arr).all() else None
+    if np.isinf(arr).any() or (not optional and np.isnan(arr).any()):
+        return None
+    return arr.tolist()  # type: ignore[no-any-return]
+
+
 class RecordParser:
     """Validates reading records for one source.
 
     known_probes  accepted probe ids (None: any id)
     max_bytes     longest accepted raw line or payload
     future_s      how far a timestamp may lie ahead of this computer's clock [s]
-                  (None: no limit, e.g. for recordings)
+                  (None: no limit relative to the clock, e.g. for recordings)
+    latest_ts     a timestamp at or after this is refused whatever the clock
+                  says [epoch s] (default :data:`LATEST_TS`, 2100-01-01)
+    Timestamps before :data:`EARLIEST_TS` are always refused.
     """
 
     def __init__(self, known_probes: frozenset[str] | None = None, *,
                  max_bytes: int = DEFAULT_MAX_RECORD_BYTES,
-                 future_s: float | None = 86400.0) -> None:
+                 future_s: float | None = 86400.0,
+                 latest_ts: float = LATEST_TS) -> None:
         self.known_probes = known_probes
         self.max_bytes = max_bytes
         self.future_s = future_s
+        self.latest_ts = latest_ts
 
-    def _latest(self) -> float:
-        return math.inf if self.future_s is None else time.time() + self.future_s
+    def latest(self) -> float:
+        """Timestamps at or after this are refused now [epoch s]."""
+        if self.future_s is None:
+            return self.latest_ts
+        return min(time.time() + self.future_s, self.latest_ts)
+
+    _latest = latest
 
     def record(self, obj: Any, default_probe: str | None = None,
                latest: float | None = None) -> tuple[str, float, float, float, float]:
@@ -161,10 +221,57 @@ class RecordParser:
         t = _timestamp(ts)
         if t < EARLIEST_TS:
             raise ParseError(f"ts is before the year 2000: {t!r}")
-        if t > (self._latest() if latest is None else latest):
+        if t >= (self._latest() if latest is None else latest):
             raise ParseError(f"ts is too far in the future: {t!r}")
         return (probe, t, _number(mv, "mv"), _optional(obj.get("temp_c"), "temp_c"),
                 _optional(obj.get("ohms"), "ohms"))
+
+    def columns(self, objs: Sequence[Any], default_probe: str | None = None,
+                latest: float | None = None) -> tuple[list[str], list[float], list[float],
+                                                      list[float], list[float]] | None:
+        """Columns ``(probe, ts, mv, temp_c, ohms)`` of decoded records when
+        *every* one is valid, checked a column at a time; None when any is not
+        (the caller then takes the per-record path, which names each reason).
+        Same values as :meth:`record` on each item (tested)."""
+        if not objs or set(map(type, objs)) != {dict}:
+            return None
+        get = dict.get
+        n = len(objs)
+        probes = list(map(get, objs, repeat("probe", n), repeat(default_probe, n)))
+        if set(map(type, probes)) != {str}:
+            return None
+        known = self.known_probes
+        if known is not None and not known.issuperset(probes):
+            return None
+        raw_ts = list(map(get, objs, repeat("ts", n)))
+        ts = _number_column(raw_ts, optional=False)
+        if ts is None:
+            return None   # missing, RFC 3339 text or bad: the per-record path decides
+        ts_arr = np.asarray(ts, dtype=np.float64)
+        if ts_arr.min() < EARLIEST_TS or ts_arr.max() >= (self._latest() if latest is None else latest):
+            return None
+        mv = _number_column(list(map(get, objs, repeat("mv", n))), optional=False)
+        if mv is None:
+            return None
+        temp = _number_column(list(map(get, objs, repeat("temp_c", n))), optional=True)
+        if temp is None:
+            return None
+        ohms = _number_column(list(map(get, objs, repeat("ohms", n))), optional=True)
+        if ohms is None:
+            return None
+        return probes, ts, mv, temp, ohms
+
+    def _extend(self, out: ParsedReadings, objs: Sequence[Any], default_probe: str | None,
+                latest: float) -> bool:
+        cols = self.columns(objs, default_probe, latest)
+        if cols is None:
+            return False
+        out.probe.extend(cols[0])
+        out.ts.extend(cols[1])
+        out.mv.extend(cols[2])
+        out.temp_c.extend(cols[3])
+        out.ohms.extend(cols[4])
+        return True
 
     def one(self, raw: bytes | str, default_probe: str | None = None) -> tuple[str, float, float, float, float]:
         """Decode and validate one JSON record."""
@@ -190,6 +297,11 @@ class RecordParser:
             return out
         latest = self._latest()
         items = obj if type(obj) is list else (obj,)
+        if not items:
+            out.rejects.append(("empty array: a payload must hold at least one reading", raw))
+            return out
+        if len(items) > 1 and self._extend(out, items, default_probe, latest):
+            return out
         for item in items:
             try:
                 out.add(self.record(item, default_probe, latest))
@@ -205,6 +317,15 @@ class RecordParser:
         record = self.record
         limit = self.max_bytes
         latest = self._latest()
+        if not isinstance(lines, list):
+            lines = list(lines)
+        if lines and max(map(len, lines)) <= limit:
+            try:
+                objs = list(map(loads, lines))
+            except decode_error:
+                objs = None   # a bad or blank line: the per-line path below
+            if objs is not None and self._extend(out, objs, None, latest):
+                return out
         P, T, M, C, O = out.probe, out.ts, out.mv, out.temp_c, out.ohms
         rejects = out.rejects
         for raw in lines:

@@ -99,3 +99,7 @@ class StdinCollector:
     @property
     def done(self) -> bool:
         return self._done.is_set()
+
+    clock_pace = 1.0
+    """Readings carry their own times (maybe of an old recording): the service's
+    time-based rules follow them, advancing in real time while input waits."""

@@ -17,7 +17,7 @@ from typing import Any
 
 from pydantic import BaseModel, ValidationError
 
-from probeflow.config.models import ConfigFileModel, ProbeConfig, ServiceSettings
+from probeflow.config.models import ConfigFileModel, NotifySettings, ProbeConfig, ServiceSettings
 from probeflow.config.problems import fields_of, problems_from_validation
 from probeflow.config.secrets import SecretResolution, interpolate_env, resolve_secret_keys
 from probeflow.config.yamlfile import KeyPath, YamlDocument, format_key_path, read_yaml_text
@@ -57,6 +57,7 @@ class LoadedConfig:
     rules: Any = None
     service: ServiceSettings = field(default_factory=ServiceSettings)
     warnings: tuple[str, ...] = ()
+    notify: NotifySettings = field(default_factory=NotifySettings)
 
     @property
     def probe_ids(self) -> tuple[str, ...]:
@@ -132,7 +133,8 @@ def load_config_text(text: str, filename: str, *, base_dir: Path | None = None,
     try:
         top = ConfigFileModel.model_validate(data)
     except ValidationError as exc:
-        for key_path, message in problems_from_validation(exc, (), ConfigFileModel, secrets.sensitive):
+        for key_path, message in problems_from_validation(exc, (), ConfigFileModel, secrets.sensitive,
+                                                         data):
             problems.add(key_path, message)
     raw_probes = data.get("probes")
     if not raw_probes:
@@ -177,7 +179,7 @@ def load_config_text(text: str, filename: str, *, base_dir: Path | None = None,
         raise ConfigError(f"{filename}: invalid", path=filename)
     return LoadedConfig(path=filename, site=top.site, probes=tuple(top.probes),
                         collectors=tuple(collectors), stores=tuple(stores), rules=rules,
-                        service=top.service, warnings=tuple(warnings))
+                        service=top.service, warnings=tuple(warnings), notify=top.notify)
 
 
 def _plugin_section(group: str, key: str, index: int, section: dict[str, Any], base: Path,
@@ -203,7 +205,7 @@ def _plugin_section(group: str, key: str, index: int, section: dict[str, Any], b
         config = model.model_validate(section, context={"base_dir": str(base),
                                                        "require_secrets": secrets_required})
     except ValidationError as exc:
-        for key_path, message in problems_from_validation(exc, path, model, secrets.sensitive):
+        for key_path, message in problems_from_validation(exc, path, model, secrets.sensitive, section):
             problems.add(key_path, message)
         return None
     return PluginSection(group, kind, f"{key}[{index}]", plugin, config)
@@ -221,6 +223,6 @@ def _rules_section(raw: Any, probe_ids: list[Any], secrets: SecretResolution,
     try:
         return model.model_validate(raw, context={"probe_ids": probe_ids})
     except ValidationError as exc:
-        for key_path, message in problems_from_validation(exc, ("rules",), model, secrets.sensitive):
+        for key_path, message in problems_from_validation(exc, ("rules",), model, secrets.sensitive, raw):
             problems.add(key_path, message)
     return None

@@ -15,6 +15,7 @@ from probeflow.config.yamlfile import KeyPath
 __all__ = ["fields_of", "problems_from_validation"]
 
 _SECRET_NAME = re.compile(r"pass|token|secret|credential|(^|_)key$", re.IGNORECASE)
+_NO_DATA = object()
 
 
 def _unwrap(tp: Any) -> Any:
@@ -70,7 +71,7 @@ def _message(err: Any, model: type[BaseModel] | None, loc: KeyPath, secret: bool
     if kind == "missing":
         return "this key is required but missing"
     if kind == "extra_forbidden":
-        parent = _model_at(model, loc[:-1]) if model is not None else None
+        parent = _model_at(model, loc[:-1]) if model is not None and loc else None
         if parent is None:
             return "unknown key"
         allowed = sorted(fields_of(parent))
@@ -99,13 +100,37 @@ def _message(err: Any, model: type[BaseModel] | None, loc: KeyPath, secret: bool
     return (msg[:1].lower() + msg[1:]) + got
 
 
+def _user_key_path(loc: tuple[Any, ...], data: Any) -> KeyPath:
+    """The parts of a pydantic error location that name the user's keys and
+    list items.  Pydantic also puts names of its own in a location (union
+    members and validators such as ``function-after[...]``); a part that is not
+    a key or index of ``data`` at that point and holds a ``[`` is one of those
+    and is left out.  A user's key holding ``[`` (``slope[2]``) is kept."""
+    out: list[str | int] = []
+    node = data
+    for part in loc:
+        if isinstance(node, dict) and part in node:
+            node = node[part]
+        elif isinstance(node, list) and isinstance(part, int) and 0 <= part < len(node):
+            node = node[part]
+        elif not isinstance(part, int) and "[" in str(part):
+            continue
+        out.append(part)
+    return tuple(out)
+
+
 def problems_from_validation(exc: ValidationError, prefix: KeyPath,
                              model: type[BaseModel] | None,
-                             sensitive: set[KeyPath]) -> list[tuple[KeyPath, str]]:
-    """``(key path, message)`` for every error in ``exc`` (paths start with ``prefix``)."""
+                             sensitive: set[KeyPath], data: Any = _NO_DATA) -> list[tuple[KeyPath, str]]:
+    """``(key path, message)`` for every error in ``exc`` (paths start with
+    ``prefix``).  ``data`` is what was validated: with it, a key of the user's
+    that holds ``[`` is told apart from pydantic's own names in a location."""
     out: list[tuple[KeyPath, str]] = []
     for err in exc.errors(include_url=False):
-        loc: KeyPath = tuple(p for p in err["loc"] if isinstance(p, int) or "[" not in str(p))
+        if data is _NO_DATA:
+            loc: KeyPath = tuple(p for p in err["loc"] if isinstance(p, int) or "[" not in str(p))
+        else:
+            loc = _user_key_path(err["loc"], data)
         full = prefix + loc
         out.append((full, _message(err, model, loc, _is_secret(full, sensitive))))
     return out

@@ -38,6 +38,7 @@ __all__ = [
     "DiagnosticsConfig",
     "DriftRuleConfig",
     "FlatlineConfig",
+    "LabChecksConfig",
     "LimitSpec",
     "MvRangeConfig",
     "NoiseConfig",
@@ -292,6 +293,25 @@ class DriftRuleConfig(_Strict):
         return self
 
 
+class LabChecksConfig(_Strict):
+    """Alarms from outside evidence, checked by the running service when a grab sample
+    or a calibration is recorded (``rules.lab_checks``).  Defaults: common practice,
+    no source; tune them for the site."""
+
+    grab_limit_ph: float = Field(default=0.2, gt=0.0)
+    """|online - lab| above this raises ``grab-sample/<probe>/deviation``."""
+    grab_trend_limit_ph_per_day: float | None = Field(default=None, gt=0.0)
+    """|Theil-Sen trend of (online - lab)| above this raises ``grab-sample/<probe>/trend``."""
+    grab_trend_min_samples: int = Field(default=3, ge=2)
+    offset_jump_mv: float = Field(default=15.0, gt=0.0)
+    """Offset moved more than this between two accepted calibrations."""
+    slope_jump_pct: float = Field(default=5.0, gt=0.0)
+    """Slope moved more than this between two accepted calibrations."""
+    slope_forecast_days: float = Field(default=30.0, gt=0.0)
+    """Raise when the slope trend reaches the probe's minimum acceptable slope within this."""
+    slope_forecast_min_points: int = Field(default=3, ge=3)
+
+
 class RulesConfig(_Strict):
     """The whole ``rules:`` section."""
 
@@ -300,6 +320,7 @@ class RulesConfig(_Strict):
     diagnostics: DiagnosticsConfig | None = None
     redundancy: list[RedundancyRuleConfig] = Field(default_factory=list)
     drift: list[DriftRuleConfig] = Field(default_factory=list)
+    lab_checks: LabChecksConfig = Field(default_factory=LabChecksConfig)
 
     @model_validator(mode="after")
     def _unique_ids(self) -> RulesConfig:

@@ -103,6 +103,27 @@ class Engine:
     def active_alarms(self) -> list[dict[str, Any]]:
         return self.book.active_alarms()
 
+    # --- conditions found outside the reading path ------------------------------------
+    def external(self, rule: str, probe: str, limit: str, active: bool, ts: float,
+                 value: float = math.nan, threshold: float = math.nan, message: str = "",
+                 severity: str = "medium", quantity: str = "") -> AlertEvent | None:
+        """An alarm condition the service finds itself (data gap, outbox quota,
+        calibration due, grab-sample and calibration-history checks), through the
+        same ISA-18.2 lifecycle as the rules' alarms (``rule/probe/limit`` is its id).
+
+        Only a change of condition makes an event: reporting an active condition
+        again (e.g. after a restart restored the alarm) returns None, as does a
+        change while the alarm is shelved or its probe is in maintenance.
+        """
+        alarm_id = f"{rule}/{probe}/{limit}"
+        known = {r.alarm_id: r for r in self.book.records()}.get(alarm_id)
+        if known is None and not active:
+            return None
+        if known is not None and known.active == bool(active):
+            return None
+        return self.book.apply(Transition(rule, probe, quantity, limit, bool(active), float(ts),
+                                          float(value), float(threshold), severity, message))
+
     def _now(self) -> float:
         return max(self._last_seen.values(), default=0.0)
 

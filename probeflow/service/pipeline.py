@@ -47,9 +47,10 @@ _END = object()
 _QUARANTINE_BACKLOG = 100_000
 
 
-def _empty_processed() -> ProcessedBatch:
+def _empty_processed(on_committed: tuple[Any, ...] = ()) -> ProcessedBatch:
     f = np.empty(0, dtype=np.float64)
-    return ProcessedBatch(np.empty(0, dtype=object), f, f, f, f, f, f, np.empty(0, dtype=np.uint8))
+    return ProcessedBatch(np.empty(0, dtype=object), f, f, f, f, f, f, np.empty(0, dtype=np.uint8),
+                          on_committed=on_committed)
 
 
 @dataclass
@@ -92,12 +93,20 @@ class Service:
                  settings: ServiceSettings | None = None,
                  log: Log | None = None,
                  known_probes: frozenset[str] | None = None,
-                 tick_clock: Literal["wall", "data"] = "wall",
+                 tick_clock: Literal["wall", "data", "auto"] = "wall",
                  retry_collectors: bool = False) -> None:
         """collectors: (name, plugin class, plugin config); stores: (name, store object).
 
-        tick_clock        time given to time-based rules: this computer's clock
-                          ("wall", live) or the latest reading's ("data", replay)
+        tick_clock        time given to time-based rules (stale, shelving expiry) and
+                          operator commands: this computer's clock ("wall", live),
+                          the recording's ("data", replay), or "auto": "data" when
+                          every collector replays recorded time (it has a
+                          ``clock_pace`` that is not None: files, stdin), else
+                          "wall".  The data clock is the newest reading's time plus
+                          the wall time since it arrived (not for as-fast-as-possible
+                          replays, and never faster than real time, so queueing delays
+                          in a fast replay cannot look like a gap): an old recording
+                          raises no stale alarm and a stalled source still does.
         retry_collectors  keep retrying a collector whose start fails (live service)
         """
         self.site = site
@@ -105,7 +114,6 @@ class Service:
         self.rules = rules
         self.settings = settings or ServiceSettings()
         self.log = log or Log(fmt=self.settings.log_format)
-        self.tick_clock = tick_clock
         self.retry_collectors = retry_collectors
         self._failed_starts: dict[str, tuple[tuple[str, Any, CollectorContext], int, float]] = {}
         self.stats = ServiceStats()
@@ -127,11 +135,22 @@ class Service:
             context = CollectorContext(
                 name=name, emit_batch=self._enqueue, quarantine_item=self._enqueue_quarantine,
                 known_probes=known_probes if known_probes is not None else frozenset(converter.probe_ids),
-                stop_event=threading.Event(), log=self.log.bind(collector=name))
+                stop_event=threading.Event(), log=self.log.bind(collector=name),
+                on_session_lost=self._session_lost)
             self.collectors.append((name, plugin(config, context), context))
         self._thread = threading.Thread(target=self._pipeline, name="pipeline", daemon=True)
         self._last_ts = -np.inf
+        self._last_arrival = time.monotonic()
         self._started = False
+        self.links: Any = None
+        """ServiceLinks (service/links.py): calibration feed, alarm commands, external alarms."""
+        if tick_clock == "auto":
+            paces = [getattr(c, "clock_pace", None) for _n, c, _x in self.collectors]
+            tick_clock = "data" if paces and all(p is not None for p in paces) else "wall"
+        self.tick_clock = tick_clock
+        known = [float(p) for _n, c, _x in self.collectors
+                 if (p := getattr(c, "clock_pace", None)) is not None]
+        self._clock_pace = min(1.0, max(known, default=0.0))
 
     # -- collector side (any thread) ---------------------------------------------
     def _enqueue(self, batch: ReadingBatch) -> None:
@@ -165,6 +184,42 @@ class Service:
     def stopping(self) -> bool:
         return self._stop.is_set()
 
+    def now(self) -> float:
+        """Service time [epoch s] for rules' ticks and operator commands (see ``tick_clock``);
+        NaN on the data clock before the first reading."""
+        if self.tick_clock == "wall":
+            return time.time()
+        if not np.isfinite(self._last_ts):
+            return float("nan")
+        if not self._clock_pace or all(c.done for _n, c, _x in self.collectors):
+            return float(self._last_ts)  # the recording has ended: so has its time
+        return float(self._last_ts) + (time.monotonic() - self._last_arrival) * self._clock_pace
+
+    def _session_lost(self, collector: str, detail: str) -> None:
+        if self.links is not None:
+            self.links.session_lost(collector, detail)
+
+    # -- read-only views for the metrics exporter (service/metrics.py) ---------------
+    @property
+    def newest_reading_ts(self) -> float:
+        """Time of the newest converted reading [epoch s]; -inf before the first."""
+        return float(self._last_ts)
+
+    @property
+    def pipeline_alive(self) -> bool:
+        """True while the pipeline thread converts and dispatches batches."""
+        return self._thread.is_alive()
+
+    @property
+    def collectors_not_started(self) -> frozenset[str]:
+        """Names of collectors whose start failed and is being retried."""
+        return frozenset(self._failed_starts)
+
+    @property
+    def input_queue_batches(self) -> int:
+        """Reading batches waiting for the pipeline thread."""
+        return self._input.qsize()
+
     def start(self) -> None:
         """Start store workers, the pipeline thread and every collector.
 
@@ -172,6 +227,8 @@ class Service:
         built with ``retry_collectors`` (``run``), retried with capped backoff
         while the others carry on; otherwise the error is raised.
         """
+        if self.links is not None:
+            self.links.start()
         for worker in self.workers:
             worker.start()
         self._thread.start()
@@ -212,12 +269,34 @@ class Service:
                 break
             self._retry_collectors()
             if self.collectors and all(c.done for _, c, _ in self.collectors):
+                self._wait_for_backlog()
                 break
             if not self._thread.is_alive():
                 self.log.error("pipeline_stopped_unexpectedly")
                 break
         self.shutdown()
         return self.stats
+
+    def _wait_for_backlog(self) -> None:
+        """Every source has ended and nobody asked to stop: let the pipeline and
+        the stores work off what is queued, however long it takes (a replay reads
+        far faster than a store writes), so the stop deadline of ``shutdown``
+        applies only to the last batch.  A stop request ends the wait, and so does
+        a backlog that has not shrunk for ``stop_timeout_s`` (a store that cannot
+        write: ``shutdown`` then counts what it could not take)."""
+        idle_checks = 0
+        best = None
+        last_progress = time.monotonic()
+        while idle_checks < 2 and not self._stop.wait(0.05):
+            if not self._thread.is_alive():
+                return
+            backlog = self._input.qsize() + sum(int(w.backlog) for w in self.workers)
+            idle_checks = 0 if backlog else idle_checks + 1
+            if best is None or backlog < best:
+                best, last_progress = backlog, time.monotonic()
+            elif time.monotonic() - last_progress > self.settings.stop_timeout_s:
+                self.log.warning("backlog_not_draining", queued=backlog)
+                return
 
     def shutdown(self) -> None:
         """Stop collectors, convert what is queued, flush and close every store."""
@@ -242,6 +321,8 @@ class Service:
         self._thread.join(max(0.1, deadline - time.monotonic()))
         for worker in self.workers:
             worker.close(max(0.5, deadline - time.monotonic()))
+        if self.links is not None:  # after the stores: their commit hooks may still use it
+            self.links.close()
         self._save_rule_state()
         for name, _collector, context in self.collectors:
             c = context.counters
@@ -274,9 +355,16 @@ class Service:
                 pending.append(item)
                 rows = len(item)
                 until = time.monotonic() + wait_s
+                # A batch holding acknowledgements (MQTT) goes out as soon as nothing
+                # more is queued: its source sends no more until this one is committed,
+                # so lingering would only add latency (the collector already coalesces).
+                holds_acks = bool(item.on_committed)
                 while rows < batch_rows:
                     try:
-                        more = self._input.get(timeout=max(0.0, until - time.monotonic()))
+                        if holds_acks:
+                            more = self._input.get_nowait()
+                        else:
+                            more = self._input.get(timeout=max(0.0, until - time.monotonic()))
                     except queue.Empty:
                         break
                     if more is _END:
@@ -284,16 +372,39 @@ class Service:
                         break
                     pending.append(more)
                     rows += len(more)
+                    holds_acks = holds_acks or bool(more.on_committed)
+                if holds_acks and not ended:
+                    rows, ended = self._group_commits(pending, rows, batch_rows)
             self._drain_quarantine()
             if pending:
                 self._process(ReadingBatch.concat(pending))
-            if self.rules is not None and time.monotonic() - last_tick >= 1.0:
+            if time.monotonic() - last_tick >= 1.0:
                 last_tick = time.monotonic()
-                self._tick()
+                self._every_second()
         self._drain_quarantine()
+
+    def _group_commits(self, pending: list[ReadingBatch], rows: int,
+                       batch_rows: int) -> tuple[int, bool]:
+        """While a durable store still has an earlier batch queued (it is busy
+        committing), keep collecting input into this batch, up to ``batch_rows``:
+        under load, commits (and the acknowledgements behind them) are grouped
+        into fewer, larger transactions; when the store keeps up, nothing waits."""
+        durable = [w for w in self.workers if w.durable]
+        while rows < batch_rows and any(w.backlog for w in durable):
+            try:
+                more = self._input.get(timeout=0.002)
+            except queue.Empty:
+                continue
+            if more is _END:
+                return rows, True
+            pending.append(more)
+            rows += len(more)
+        return rows, False
 
     def _process(self, batch: ReadingBatch) -> None:
         self.stats.readings_in += len(batch)
+        if self.links is not None:
+            self._run_link(self.links.before_batch)
         try:
             processed = self.converter.convert(batch)
         except Exception as exc:
@@ -309,7 +420,10 @@ class Service:
                 self.stats.rule_errors += 1
                 self.log.error("rules_failed", rows=len(processed), error=f"{type(exc).__name__}: {exc}")
         if len(processed):
-            self._last_ts = max(self._last_ts, float(np.max(processed.ts)))
+            newest = float(np.max(processed.ts))
+            if newest > self._last_ts:
+                self._last_ts = newest
+                self._last_arrival = time.monotonic()
         self._dispatch(processed, alerts)
         self.stats.batches += 1
         self.stats.readings_converted += len(processed)
@@ -320,8 +434,28 @@ class Service:
         for worker in self.workers:
             worker.submit(seq, processed, alerts)
 
+    def _every_second(self) -> None:
+        if self.links is not None:
+            self._run_link(self.links.every_second)
+        if self.rules is not None:
+            self._tick()
+
+    def _run_link(self, step: Any) -> None:
+        now = self.now()
+        if not np.isfinite(now):
+            now = time.time()
+        try:
+            alerts = list(step(now))
+        except Exception as exc:  # noqa: BLE001 - the reading path must go on
+            self.log.error("service_link_failed", step=getattr(step, "__name__", "?"),
+                           error=f"{type(exc).__name__}: {exc}")
+            return
+        hooks = self.links.commit_hooks()  # e.g. mark an operator command done once stored
+        if alerts or hooks:
+            self._dispatch(_empty_processed(hooks), alerts)
+
     def _tick(self) -> None:
-        now = time.time() if self.tick_clock == "wall" else self._last_ts
+        now = self.now()
         if not np.isfinite(now):
             return
         try:
@@ -376,10 +510,18 @@ def build_service(config: LoadedConfig, *, collectors: Sequence[PluginSection] |
                   stores: Sequence[PluginSection] | None = None,
                   extra_stores: Sequence[tuple[str, Any]] = (),
                   log: Log | None = None, base_dir: str | None = None,
-                  tick_clock: Literal["wall", "data"] = "wall",
-                  rules: bool = True, retry_collectors: bool = False) -> Service:
+                  tick_clock: Literal["wall", "data", "auto"] = "auto",
+                  rules: bool = True, retry_collectors: bool = False,
+                  live: bool = False) -> Service:
     """Build a service from a loaded config; ``collectors``/``stores`` replace the
-    config's sections (``filter`` and ``replay`` use their own source)."""
+    config's sections (``filter`` and ``replay`` use their own source).
+
+    The calibration store in the SQLite store's file is always applied (see
+    ``service/calibration_feed.py``).  ``live`` (``probeflow run``) also takes
+    operator alarm commands (SQLite table, MQTT command topic), raises the
+    service's own alarms (data gap, outbox quota, calibration due, lab checks)
+    and sends alert events to ``notify.webhook``.
+    """
     log = log or Log(fmt=config.service.log_format)
     converter = Converter(config.probes)
     context = StoreContext(config.site, log=log, base_dir=base_dir or os.getcwd())
@@ -401,33 +543,66 @@ def build_service(config: LoadedConfig, *, collectors: Sequence[PluginSection] |
                 log.error("store_close_failed", store=_name, error=str(exc))
         raise
     store_objects.extend(extra_stores)
-    _apply_stored_calibrations(config, converter, store_objects, log)
+    if live and config.notify.webhook is not None:
+        from probeflow.service.webhook import WebhookNotifier
+
+        store_objects.append(("webhook", WebhookNotifier(config.notify.webhook, site=config.site,
+                                                         log=log)))
     engine = build_rule_engine_for(config) if rules else None
+    chosen = config.collectors if collectors is None else collectors
     service = Service(
         site=config.site, converter=converter,
-        collectors=[(s.name, s.plugin, s.config) for s in (config.collectors if collectors is None
-                                                            else collectors)],
+        collectors=[(s.name, s.plugin, s.config) for s in chosen],
         stores=store_objects, rules=engine, settings=config.service, log=log,
         tick_clock=tick_clock, retry_collectors=retry_collectors)
+    try:
+        service.links = _build_links(config, service, chosen, store_objects, log, live)
+    except BaseException:
+        service.shutdown()
+        raise
     service.restore_rule_state()
     return service
 
 
-def _apply_stored_calibrations(config: LoadedConfig, converter: Converter,
-                               stores: Sequence[tuple[str, Any]], log: Log) -> None:
-    sources = [s for _n, s in stores if hasattr(s, "latest_calibration")]
-    for probe in config.probes:
-        if not probe.calibration_from_store:
-            continue
-        found = None
-        for source in sources:
-            found = source.latest_calibration(probe.id)
-            if found:
-                break
-        if found:
-            converter.set_calibration(probe.id, found["offset_mv"], found["slope_pct"],
-                                      found["zero_ph"])
-            log.info("calibration_loaded", probe=probe.id, calibrated_at=found["ts"])
-        else:
-            log.warning("calibration_missing", probe=probe.id,
-                        hint="no accepted calibration in the store; readings are flagged uncalibrated")
+def _build_links(config: LoadedConfig, service: Service, collectors: Sequence[PluginSection],
+                 stores: Sequence[tuple[str, Any]], log: Log, live: bool) -> Any:
+    """Calibration feed (always, when there is a SQLite store), and for a live
+    service the alarm commands and external alarms (service/links.py)."""
+    from probeflow.service.links import ServiceLinks, sqlite_path_of
+
+    db_path = sqlite_path_of(stores)
+    if db_path is None and not live:
+        if any(p.calibration_from_store for p in config.probes):
+            log.warning("calibration_store_missing",
+                        hint="probes use 'calibration: store' but no sqlite store is configured; "
+                             "their readings are flagged uncalibrated")
+        return None
+    links = ServiceLinks(config, service.converter, service.rules, log, db_path,
+                         stores if live else (), commands=live)
+    if live and config.service.command_topic:
+        from probeflow.service.mqtt_commands import MqttCommandListener
+
+        broker = config.service.command_broker
+        if broker is None:
+            mqtt = [s.config for s in collectors if s.type == "mqtt"]
+            if not mqtt:
+                raise ConfigError(
+                    f"{config.path}: service.command_topic needs a broker: give "
+                    "service.command_broker (url, client_id) or configure an MQTT collector",
+                    path=config.path, problems=[("service.command_broker", "no broker for commands")])
+            base = mqtt[0]
+            broker = _command_connection(base)
+        links.listeners.append(MqttCommandListener(broker, config.service.command_topic,
+                                                   links.post_command, log))
+    return links
+
+
+def _command_connection(collector_config: Any) -> Any:
+    """The MQTT collector's broker settings with a client id of its own for commands."""
+    from probeflow.mqtt_common import MqttConnectionConfig
+
+    keys = set(MqttConnectionConfig.model_fields)
+    data = {k: getattr(collector_config, k) for k in keys if hasattr(collector_config, k)}
+    data["client_id"] = f"{collector_config.client_id}-commands"[:128]
+    return MqttConnectionConfig.model_validate(data)
+

@@ -5,7 +5,8 @@ so it never stalls the others.  Back-pressure policy when a store's queue is
 full: a *durable* store (SQLite, whose commit releases source
 acknowledgements) makes the pipeline wait, since nothing may be acknowledged
 before it is stored; any other store loses its oldest queued batch, and the
-loss is counted and logged (never silent).
+loss is counted and logged (never silent).  So is what a buffering
+(non-durable) store accepted but could not flush when the service stopped.
 
 :class:`CommitTracker` runs each batch's ``on_committed`` hooks once every
 durable store has committed it, strictly in batch order.
@@ -95,6 +96,8 @@ class StoreWorker:
         self.retry_max_s = retry_max_s
         self.on_committed = on_committed
         self.counters = StoreCounters()
+        self._unflushed_batches = 0   # written to a non-durable store since it was last flushed
+        self._unflushed_rows = 0
         self._queue: queue.Queue[Any] = queue.Queue(maxsize=queue_batches)
         self._deadline = float("inf")
         self._closing = threading.Event()
@@ -103,6 +106,11 @@ class StoreWorker:
 
     def start(self) -> None:
         self._thread.start()
+
+    @property
+    def backlog(self) -> int:
+        """Batches queued for this store and not yet taken up for writing."""
+        return self._queue.qsize()
 
     def submit(self, seq: int | None, batch: ProcessedBatch, alerts: Sequence[AlertEvent]) -> None:
         self._put(("write", seq, batch, alerts))
@@ -151,7 +159,8 @@ class StoreWorker:
         while True:
             item = self._queue.get()
             if item is _CLOSE:
-                self._retry("close", self._finish)
+                if not self._retry("close", self._finish):
+                    self._count_unflushed_loss()
                 return
             kind, seq, payload, alerts = item
             ok = self._retry(kind, functools.partial(self._write, kind, payload, alerts))
@@ -159,10 +168,25 @@ class StoreWorker:
                 self.counters.batches += 1
                 if kind == "write":
                     self.counters.rows += len(payload)
+                if not self.durable:
+                    self._unflushed_batches += 1
+                    self._unflushed_rows += len(payload)
                 if seq is not None and self.on_committed is not None and self.durable:
                     self.on_committed(seq)
             else:
                 self._count_loss(item)
+
+    def _count_unflushed_loss(self) -> None:
+        """The store gave up flushing at close: what it accepted since its last
+        flush may not have reached it, and is counted as lost."""
+        if not self._unflushed_batches:
+            return
+        self.counters.lost_batches += self._unflushed_batches
+        self.counters.lost_rows += self._unflushed_rows
+        self.log.error("store_lost_unflushed", lost_batches=self._unflushed_batches,
+                       lost_rows=self._unflushed_rows,
+                       hint="the store could not flush at shutdown; rows it had accepted may be missing from it")
+        self._unflushed_batches = self._unflushed_rows = 0
 
     def _write(self, kind: str, payload: Any, alerts: Sequence[AlertEvent]) -> None:
         if kind == "write":
@@ -172,6 +196,7 @@ class StoreWorker:
 
     def _finish(self) -> None:
         self.store.flush()
+        self._unflushed_batches = self._unflushed_rows = 0
         self.store.close()
 
     def _retry(self, what: str, action: Callable[[], None]) -> bool:

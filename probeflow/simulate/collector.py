@@ -83,6 +83,11 @@ class SimulatorCollector:
     def done(self) -> bool:
         return self._done.is_set()
 
+    @property
+    def clock_pace(self) -> float:
+        """Simulated time runs at ``speed`` (0: as fast as possible); time-based rules follow it."""
+        return float(self.config.speed)
+
     def start(self) -> None:
         if self._thread is not None:
             return

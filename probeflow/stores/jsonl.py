@@ -3,8 +3,11 @@
 Each reading becomes ``{"kind": "reading", "probe", "ts" (RFC 3339 UTC), "mv",
 "temp_c", "ph", "neutral_ph", "neutral_dev", "quality"}``; each alert event
 its ``AlertEvent.to_record()`` (``{"kind": "alert", ...}``).  NaN is written
-as null.  Lines are built from the columns in bulk: timestamps formatted by
-numpy, records encoded by orjson.
+as null, and so is a time that has no calendar form (not finite, or beyond
+the range numpy's datetime64[us] holds): "NaT" is never written.  The
+collectors quarantine such times, so this is only a last line of defence.
+Lines are built from the columns in bulk: timestamps formatted by numpy,
+records encoded by orjson.
 """
 
 from __future__ import annotations
@@ -14,7 +17,7 @@ import sys
 import threading
 from collections.abc import Sequence
 from pathlib import Path
-from typing import IO, Literal
+from typing import IO, Any, Literal
 
 import numpy as np
 import orjson
@@ -25,13 +28,26 @@ from probeflow.events import AlertEvent, rfc3339
 from probeflow.stores.base import StoreConfigBase, StoreContext
 
 __all__ = ["JsonLinesStore", "StdoutStore", "encode_alerts", "encode_quarantine", "encode_readings",
-           "reading_records", "rfc3339_column"]
+           "reading_records", "rfc3339_column", "rfc3339_stamps"]
 
 
-def rfc3339_column(ts: np.ndarray) -> list[str]:
-    """Epoch seconds -> RFC 3339 UTC strings with microseconds (same text as ``events.rfc3339``)."""
-    us = np.round(ts * 1e6).astype("datetime64[us]")
-    return [s + "Z" for s in np.datetime_as_string(us, unit="us").tolist()]
+_DATETIME64_US_LIMIT_S = 9.2e12
+"""Just inside the range of datetime64[us] (2**63 microseconds, about 9.22e12 s)."""
+
+
+def rfc3339_column(ts: np.ndarray) -> list[str | None]:
+    """Epoch seconds -> RFC 3339 UTC strings with microseconds (same text as
+    ``events.rfc3339``); None (JSON null) for a time that is not finite or is
+    beyond datetime64[us], which numpy would print as "NaT"."""
+    with np.errstate(invalid="ignore"):
+        fits = np.abs(ts) < _DATETIME64_US_LIMIT_S   # False for NaN and infinities
+    all_fit = bool(fits.all())
+    us = np.round((ts if all_fit else np.where(fits, ts, 0.0)) * 1e6).astype("datetime64[us]")
+    out: list[str | None] = [s + "Z" for s in np.datetime_as_string(us, unit="us").tolist()]
+    if not all_fit:
+        for i in np.flatnonzero(~fits).tolist():
+            out[i] = None
+    return out
 
 
 def _nulls(values: np.ndarray) -> list[float | None]:
@@ -43,36 +59,143 @@ def _nulls(values: np.ndarray) -> list[float | None]:
 
 
 _QUALITY_JSON = [orjson.dumps(name) for name in QUALITY_NAMES]
-_READING_LINE = (b'{"kind":"reading","probe":%s,"ts":"%sZ","mv":%s,"temp_c":%s,"ph":%s,'
-                 b'"neutral_ph":%s,"neutral_dev":%s,"quality":%s}')
+_READING_PIECES = (b'{"kind":"reading","probe":', b',"ts":"', b'","mv":', b'"temp_c":', b'"ph":',
+                   b'"neutral_ph":', b'"neutral_dev":', b'"quality":', b"}\n")
+"""The literal text around the eight values of a reading line (each number
+column carries its own trailing comma, see :func:`_number_texts`)."""
+
+_US_PER_DAY = 86_400_000_000
+_STAMP_BYTES = 27   # 2025-12-02T00:00:00.000500Z
+_COMMA = ord(",")
 
 
-def _json_numbers(values: np.ndarray) -> list[bytes]:
-    """One JSON number (or null for NaN) per element, encoded by orjson in one call."""
-    return orjson.dumps(values, option=orjson.OPT_SERIALIZE_NUMPY)[1:-1].split(b",")
+def _put_digits(out: np.ndarray, column: int, values: np.ndarray, width: int) -> None:
+    """Write ``values`` (non-negative ints) as ``width`` ASCII digits from ``column`` on."""
+    for k in range(width - 1, -1, -1):
+        values, digit = np.divmod(values, 10)
+        out[:, column + k] = digit + 48
+
+
+def _stamp_matrix(ts: np.ndarray) -> np.ndarray | None:
+    """RFC 3339 UTC stamps as an (n, 27) uint8 matrix of ASCII, or None when a
+    time is not finite or its year is outside 0001-9999 (callers then use
+    :func:`rfc3339_column`).  The date text is made once per distinct day;
+    hours to microseconds are integer digits.  Rounds to the microsecond as
+    :func:`rfc3339_column` does."""
+    n = int(ts.shape[0])
+    if not np.isfinite(ts).all():
+        return None
+    us = np.round(ts * 1e6).astype(np.int64)
+    days, of_day = np.divmod(us, _US_PER_DAY)
+    first = int(days.min())
+    span = int(days.max()) - first + 1
+    if span <= max(n, 64):
+        day_index = days - first
+        day_values = np.arange(first, first + span, dtype=np.int64)
+    else:
+        day_values, day_index = np.unique(days, return_inverse=True)
+    date_text = np.datetime_as_string(day_values.astype("datetime64[D]"), unit="D").tolist()
+    if any(len(d) != 10 for d in date_text):
+        return None
+    out = np.empty((n, _STAMP_BYTES), dtype=np.uint8)
+    out[:, :10] = np.array(date_text, dtype="S10").view(np.uint8).reshape(-1, 10)[day_index]
+    hours, rest = np.divmod(of_day, 3_600_000_000)
+    minutes, rest = np.divmod(rest, 60_000_000)
+    seconds, micros = np.divmod(rest, 1_000_000)
+    for column, char in ((10, "T"), (13, ":"), (16, ":"), (19, "."), (26, "Z")):
+        out[:, column] = ord(char)
+    _put_digits(out, 11, hours, 2)
+    _put_digits(out, 14, minutes, 2)
+    _put_digits(out, 17, seconds, 2)
+    _put_digits(out, 20, micros, 6)
+    return out
+
+
+def rfc3339_stamps(ts: np.ndarray) -> list[bytes]:
+    """Epoch seconds -> RFC 3339 UTC timestamps as bytes, vectorised; equal to
+    ``[s.encode() for s in rfc3339_column(ts)]`` (tested)."""
+    if ts.shape[0] == 0:
+        return []
+    matrix = _stamp_matrix(ts)
+    if matrix is None:
+        return [s.encode() if s is not None else None  # type: ignore[misc]
+                for s in rfc3339_column(ts)]
+    return matrix.view(f"S{_STAMP_BYTES}").ravel().tolist()  # type: ignore[no-any-return]
+
+
+def _binary_column(data: np.ndarray, offsets: np.ndarray) -> Any:
+    import pyarrow as pa
+
+    return pa.Array.from_buffers(pa.large_binary(), offsets.shape[0] - 1,
+                                 [None, pa.py_buffer(offsets), pa.py_buffer(data)])
+
+
+def _number_texts(values: np.ndarray) -> Any:
+    """Arrow binary column of each float as JSON (null for NaN) *followed by a
+    comma*: one ``orjson.dumps`` of the array, cut at its commas, without a
+    Python object per number."""
+    raw = np.frombuffer(orjson.dumps(values, option=orjson.OPT_SERIALIZE_NUMPY), dtype=np.uint8)
+    data = raw[1:].copy()          # drop "[", turn the closing "]" into the last comma
+    data[-1] = _COMMA
+    offsets = np.empty(values.shape[0] + 1, dtype=np.int64)
+    offsets[0] = 0
+    offsets[1:] = np.flatnonzero(data == _COMMA) + 1
+    return _binary_column(data, offsets)
+
+
+def _encode_readings_arrow(batch: ProcessedBatch) -> bytes | None:
+    """The columnar encoder behind :func:`encode_readings` (None: use the
+    straightforward one).  Every column becomes an Arrow binary column, and
+    ``binary_join_element_wise`` lays the lines out end to end in one buffer."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    n = len(batch)
+    stamps = _stamp_matrix(batch.ts)
+    if stamps is None:
+        return None
+    try:
+        probes = pa.array(batch.probe, type=pa.string()).dictionary_encode()
+    except (pa.ArrowInvalid, pa.ArrowTypeError):
+        return None
+    probe_json = pa.array([orjson.dumps(p) for p in probes.dictionary.to_pylist()],
+                          type=pa.large_binary()).take(probes.indices)
+    columns = [
+        probe_json,
+        _binary_column(stamps.ravel(), np.arange(n + 1, dtype=np.int64) * _STAMP_BYTES),
+        _number_texts(batch.mv),
+        _number_texts(batch.temp_c),
+        _number_texts(batch.ph),
+        _number_texts(batch.neutral_ph),
+        _number_texts(batch.neutral_dev),
+        pa.array(_QUALITY_JSON, type=pa.large_binary()).take(pa.array(batch.quality)),
+    ]
+    args: list[Any] = []
+    for literal, column in zip(_READING_PIECES, columns):
+        args += [pa.scalar(literal, pa.large_binary()), column]
+    args += [pa.scalar(_READING_PIECES[-1], pa.large_binary()), pa.scalar(b"", pa.large_binary())]
+    lines = pc.binary_join_element_wise(*args)
+    _validity, offsets_buffer, data_buffer = lines.buffers()
+    offsets = np.frombuffer(offsets_buffer, dtype=np.int64, count=n + 1 + lines.offset)[lines.offset:]
+    return data_buffer.to_pybytes()[int(offsets[0]):int(offsets[-1])]
 
 
 def encode_readings(batch: ProcessedBatch) -> bytes:
     """The batch as JSON lines (each ending in a newline), built in bulk.
 
     Each float column is encoded by one ``orjson.dumps`` of the numpy array
-    (NaN becomes null) and split into its numbers; probe ids are JSON-encoded
-    once per distinct id; timestamps come from :func:`rfc3339_column`.  The
-    result equals ``orjson.dumps`` of each record dict (tested).
+    (NaN becomes null) and cut into numbers in numpy; probe ids are JSON-encoded
+    once per distinct id; timestamps come from :func:`_stamp_matrix`; Arrow
+    joins the pieces row by row in C.  The result equals ``orjson.dumps`` of
+    each record of :func:`reading_records` (tested), which is used directly
+    for the rare batch the columnar path does not take (non-finite times).
     """
-    n = len(batch)
-    if not n:
+    if not len(batch):
         return b""
-    probes = batch.probe.tolist()
-    probe_json = {p: orjson.dumps(p) for p in set(probes)}
-    us = np.round(batch.ts * 1e6).astype("datetime64[us]")
-    stamps = np.datetime_as_string(us, unit="us").astype("S").tolist()
-    quality = [_QUALITY_JSON[q] for q in batch.quality.tolist()]
-    rows = zip([probe_json[p] for p in probes], stamps, _json_numbers(batch.mv),
-               _json_numbers(batch.temp_c), _json_numbers(batch.ph), _json_numbers(batch.neutral_ph),
-               _json_numbers(batch.neutral_dev), quality)
-    line = _READING_LINE
-    return b"\n".join([line % row for row in rows]) + b"\n"
+    fast = _encode_readings_arrow(batch)
+    if fast is not None:
+        return fast
+    return b"".join(orjson.dumps(r) + b"\n" for r in reading_records(batch))
 
 
 def reading_records(batch: ProcessedBatch) -> list[dict[str, object]]:

@@ -5,8 +5,13 @@ Tables
                UNIQUE(probe, ts) with INSERT OR IGNORE, so a reading written
                twice (a redelivery after a crash) is stored once
   alerts       one row per alarm transition; UNIQUE(alarm_id, ts, event)
-  calibrations one row per calibration (filled by the calibration workflow)
   quarantine   rejected input: source, reason, raw text, received_ts
+  calibration_log, calibration_points, grab_samples, maintenance
+               the calibration store's tables (``probeflow.calibration.store``),
+               created here too so one file holds everything
+  alarm_commands
+               operator commands (ack, shelve, unshelve) queued for the running
+               service (``probeflow.service.alarm_commands``)
 
 Every ``write`` is one transaction (executemany per table), committed before
 it returns, so the service may acknowledge the batch's sources afterwards.
@@ -23,9 +28,14 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any, Literal
 
+import numpy as np
+from pydantic import Field
+
 from probeflow.batch import QUALITY_NAMES, ProcessedBatch, QuarantineItem
+from probeflow.calibration.store import create_calibration_tables
 from probeflow.errors import StoreError
 from probeflow.events import AlertEvent
+from probeflow.service.alarm_commands import create_command_table
 from probeflow.stores.base import StoreConfigBase, StoreContext
 
 __all__ = ["SCHEMA", "SqliteStore"]
@@ -43,12 +53,6 @@ CREATE TABLE IF NOT EXISTS alerts (
     UNIQUE (alarm_id, ts, event)
 );
 CREATE INDEX IF NOT EXISTS alerts_ts ON alerts (ts);
-CREATE TABLE IF NOT EXISTS calibrations (
-    id INTEGER PRIMARY KEY, probe TEXT NOT NULL, ts REAL NOT NULL,
-    offset_mv REAL NOT NULL, slope_pct REAL NOT NULL, zero_ph REAL NOT NULL,
-    accepted INTEGER NOT NULL DEFAULT 1, detail TEXT
-);
-CREATE INDEX IF NOT EXISTS calibrations_probe_ts ON calibrations (probe, ts);
 CREATE TABLE IF NOT EXISTS quarantine (
     id INTEGER PRIMARY KEY, source TEXT NOT NULL, reason TEXT NOT NULL, raw TEXT NOT NULL,
     received_ts REAL NOT NULL
@@ -56,13 +60,11 @@ CREATE TABLE IF NOT EXISTS quarantine (
 """
 
 
+_QUALITY_ARRAY = np.array(QUALITY_NAMES, dtype=object)
+
 _ALERT_INSERT = (
     "INSERT OR IGNORE INTO alerts (alarm_id, rule, probe, quantity, limit_name, event, "
     "state, ts, value, threshold, severity, message) VALUES (?,?,?,?,?,?,?,?,?,?,?,?)"
-)
-_CALIBRATION_INSERT = (
-    "INSERT INTO calibrations (probe, ts, offset_mv, slope_pct, zero_ph, accepted, detail) "
-    "VALUES (?,?,?,?,?,?,?)"
 )
 
 
@@ -70,6 +72,7 @@ class SqliteStoreConfig(StoreConfigBase):
     type: Literal["sqlite"] = "sqlite"
     path: str = "data/probeflow.sqlite"
     synchronous: Literal["normal", "full"] = "normal"
+    cache_mib: int = Field(default=64, ge=2, le=4096)   # page cache: keeps the (probe, ts) index in memory
     busy_timeout_s: float = 10.0
 
 
@@ -81,7 +84,7 @@ def _create_private(path: Path) -> None:
 
 
 class SqliteStore:
-    """Readings, alerts, calibrations and quarantine in one SQLite file."""
+    """Readings, alerts, quarantine, calibrations and alarm commands in one SQLite file."""
 
     Config = SqliteStoreConfig
     durable = True  # the service acknowledges sources only after this store commits
@@ -98,7 +101,10 @@ class SqliteStore:
                                        isolation_level=None, check_same_thread=False)
             self._db.execute("PRAGMA journal_mode=WAL")
             self._db.execute(f"PRAGMA synchronous={config.synchronous.upper()}")
+            self._db.execute(f"PRAGMA cache_size=-{int(config.cache_mib) * 1024}")
             self._db.executescript(SCHEMA)
+            create_calibration_tables(self._db)
+            create_command_table(self._db)
         except (OSError, sqlite3.Error) as exc:
             raise StoreError(f"cannot open the SQLite store {self.path}: {exc}") from exc
 
@@ -106,7 +112,7 @@ class SqliteStore:
     def write(self, batch: ProcessedBatch, alerts: Sequence[AlertEvent]) -> None:
         rows = zip(batch.probe.tolist(), batch.ts.tolist(), batch.mv.tolist(),
                    batch.temp_c.tolist(), batch.ph.tolist(), batch.neutral_ph.tolist(),
-                   batch.neutral_dev.tolist(), [QUALITY_NAMES[q] for q in batch.quality.tolist()])
+                   batch.neutral_dev.tolist(), _QUALITY_ARRAY[batch.quality].tolist())
         alert_rows = [(a.alarm_id, a.rule, a.probe, a.quantity, a.limit, a.event, a.state, a.ts,
                        a.value, a.threshold, a.severity, a.message) for a in alerts]
         self._transaction(
@@ -128,23 +134,6 @@ class SqliteStore:
                 self._db.close()
             except sqlite3.Error as exc:
                 raise StoreError(f"closing the SQLite store {self.path} failed: {exc}") from exc
-
-    # -- calibrations (placeholder schema; the calibration workflow fills it) -----
-    def add_calibration(self, probe: str, ts: float, offset_mv: float, slope_pct: float,
-                        zero_ph: float, accepted: bool = True, detail: str = "") -> None:
-        self._transaction((_CALIBRATION_INSERT,
-                           [(probe, ts, offset_mv, slope_pct, zero_ph, int(accepted), detail)]))
-
-    def latest_calibration(self, probe: str) -> dict[str, Any] | None:
-        """The latest accepted calibration of ``probe`` (for ``calibration: store``)."""
-        with self._lock:
-            row = self._db.execute(
-                "SELECT ts, offset_mv, slope_pct, zero_ph FROM calibrations "
-                "WHERE probe = ? AND accepted = 1 ORDER BY ts DESC, id DESC LIMIT 1", (probe,),
-            ).fetchone()
-        if row is None:
-            return None
-        return {"ts": row[0], "offset_mv": row[1], "slope_pct": row[2], "zero_ph": row[3]}
 
     def _transaction(self, *statements: tuple[str, Any]) -> None:
         with self._lock:

@@ -1,8 +1,8 @@
-"""Defects the reliability suite found in code this suite does not own.
+"""Defects the reliability suite found in code this suite does not own, now fixed.
 
-Each test states the behaviour the contract asks for and is marked
-``xfail(strict=True)`` until the owner fixes it; a fix turns it into a pass
-(and strict mode then asks for the marker to be removed).
+Each test states the behaviour the contract asks for (bad input is counted and
+quarantined with its reason, never fatal; nothing is lost silently) and keeps
+the defect from coming back.
 """
 
 from __future__ import annotations
@@ -28,26 +28,17 @@ def replay(path: Path) -> tuple[Recorder, FileCollector]:
     return recorder, collector
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "probeflow/collectors/file.py _parquet_chunk checks a text ts column through "
-    'parser.record({"probe": "-", ...}), so with known probes every row is rejected as '
-    '\'unknown probe: "-"\''))
 def test_parquet_recording_with_rfc3339_text_times_is_read(tmp_path: Path) -> None:
     path = tmp_path / "rec.parquet"
     pq.write_table(pa.table({"probe": ["tank-3", "tank-4"],
-                             "ts": ["2026-12-01T00:00:00Z", "2026-12-01T00:00:01+00:00"],
+                             "ts": ["2025-12-01T00:00:00Z", "2025-12-01T00:00:01+00:00"],
                              "mv": [-12.0, 30.0]}), path)
     recorder, _ = replay(path)
     assert [q.reason for q in recorder.quarantined] == []
+    # 2025-12-01T00:00:00Z = 1764547200 s (reference: datetime(2025, 12, 1, tzinfo=UTC).timestamp())
     assert recorder.rows() == [("tank-3", 1764547200.0, -12.0), ("tank-4", 1764547201.0, 30.0)]
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "probeflow/collectors/parse.py _short() (orjson.dumps of the value, line ~116) raises "
-    "TypeError on text holding surrogate escapes; the CSV reader in collectors/file.py opens "
-    "files with errors='surrogateescape', so invalid UTF-8 in a probe or ts cell kills the "
-    "reader thread and every later row is neither stored nor quarantined"))
-@pytest.mark.filterwarnings("ignore::pytest.PytestUnhandledThreadExceptionWarning")
 @pytest.mark.parametrize("cell", ["probe", "ts"])
 def test_csv_row_with_invalid_utf8_is_quarantined_and_reading_goes_on(
         tmp_path: Path, cell: str) -> None:
@@ -59,10 +50,6 @@ def test_csv_row_with_invalid_utf8_is_quarantined_and_reading_goes_on(
     assert recorder.rows() == [("tank-3", 1764633601.0, -2.0)]
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "probeflow/collectors/file.py builds its RecordParser with future_s=None, so a recording "
-    "accepts any future time: 1e300 s is stored in SQLite and the JSON Lines store writes it "
-    "as 'NaTZ'; year 9999 is accepted too.  Proposed bound: quarantine ts after 2100-01-01"))
 @pytest.mark.parametrize("ts", ["1e300", '"9999-12-31T23:59:59Z"', "4102444800.0"])
 def test_recording_times_far_in_the_future_are_quarantined(tmp_path: Path, ts: str) -> None:
     path = tmp_path / "rec.jsonl"
@@ -72,10 +59,6 @@ def test_recording_times_far_in_the_future_are_quarantined(tmp_path: Path, ts: s
     assert len(recorder.quarantined) == 1 and "future" in recorder.quarantined[0].reason
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "probeflow/collectors/file.py _parquet_chunk raises CollectorError for a column of the "
-    "wrong type (e.g. mv stored as text): the whole recording is refused and logged, but its "
-    "rows are neither read nor quarantined (quarantined counter stays 0)"))
 def test_parquet_column_of_the_wrong_type_puts_its_rows_in_quarantine(tmp_path: Path) -> None:
     path = tmp_path / "rec.parquet"
     pq.write_table(pa.table({"probe": ["tank-3", "tank-4"], "ts": [1764633600.0, 1764633601.0],
@@ -91,11 +74,6 @@ def _alias_bomb(levels: int) -> str:
     return "\n".join(lines) + f"\nprobes: [{{id: tank-3}}]\nsite: *a{levels - 1}\n"
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "probeflow/config/yamlfile.py _walk (line map per key path) and config/secrets.py "
-    "interpolate_env copy every YAML alias expansion: work grows 10x per nesting level, so a "
-    "12-line file with 9 levels makes check/run hang and exhaust memory.  The loader should "
-    "refuse such a file with a ConfigError naming the aliases"))
 def test_yaml_alias_expansion_is_bounded() -> None:
     # 5 levels = 100 000 expanded nodes from 60 written: already refused, cheaply, once fixed
     with pytest.raises(ConfigError) as caught:
@@ -132,11 +110,6 @@ def test_influx_store_with_the_service_log_survives_an_unreachable_server(tmp_pa
     assert "influx" in stream.getvalue()
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "probeflow/config/problems.py problems_from_validation (line ~108) drops every loc part "
-    "holding '[' (meant for pydantic's internal validator names), so a user's key such as "
-    "'[' or 'a[1]' is lost: at the top level _message then raises IndexError (line ~77) "
-    "instead of a ConfigError; deeper down the problem no longer names the key"))
 @pytest.mark.parametrize("text", ["'[': 1\nprobes: [{id: tank-3}]\n",
                                   "probes: [{id: tank-3, 'slope[2]': 1}]\n"])
 def test_a_key_with_a_bracket_is_reported_by_name(text: str) -> None:
@@ -146,11 +119,6 @@ def test_a_key_with_a_bracket_is_reported_by_name(text: str) -> None:
 
 
 @pytest.mark.skipif(not Path("/dev/full").exists(), reason="needs /dev/full (a disk that is always full)")
-@pytest.mark.xfail(strict=True, reason=(
-    "probeflow/service/workers.py StoreWorker._loop ignores the result of "
-    "_retry('close', self._finish): when a store cannot flush what it buffered (the JSON Lines "
-    "store on a full disk), the service logs store_gave_up but counts no lost rows "
-    "(per_store lost_rows = 0, service_stopped store_lost_rows=0): a silent loss"))
 def test_rows_a_store_cannot_flush_at_shutdown_are_counted_as_lost(tmp_path: Path) -> None:
     import io
 
@@ -171,11 +139,6 @@ def test_rows_a_store_cannot_flush_at_shutdown_are_counted_as_lost(tmp_path: Pat
     assert counters["lost_rows"] == 10
 
 
-@pytest.mark.filterwarnings("ignore::pytest.PytestUnhandledThreadExceptionWarning")
-@pytest.mark.xfail(strict=True, reason=(
-    "probeflow/collectors/file.py _csv applies no size limit (max_line_bytes) to CSV rows and "
-    "does not catch csv.Error: a cell over the csv module's 131072-byte field limit kills the "
-    "reader thread; the row is not quarantined and every later row is lost"))
 def test_an_oversize_csv_row_is_quarantined_and_reading_goes_on(tmp_path: Path) -> None:
     path = tmp_path / "rec.csv"
     path.write_bytes(b"probe,ts,mv\ntank-3,1764633600.0," + b"9" * 200_000

@@ -58,19 +58,28 @@ def test_many_bad_lines_logged_once_but_all_quarantined(cli, cli_env, config_fil
 
 
 def test_calibration_store_keyword_uses_latest_accepted(config_file, tmp_path):
+    """Accepted calibrations from the calibration store apply from their applies_from on;
+    a rejected one never.  Expected pH from the chemistry core's own conversion."""
+    from probeflow.calibration import Calibration, Verdict
+    from probeflow.calibration.store import CalibrationStore
+
     db = tmp_path / "cal.sqlite"
-    store = SqliteStore(SqliteStoreConfig(path=str(db)))
-    store.add_calibration("basin-1", 1.70e9, offset_mv=9.0, slope_pct=90.0, zero_ph=7.0)
-    store.add_calibration("basin-1", 1.71e9, offset_mv=-4.0, slope_pct=97.0, zero_ph=7.0)
-    store.add_calibration("basin-1", 1.72e9, offset_mv=30.0, slope_pct=70.0, zero_ph=7.0,
-                          accepted=False)
+    store = SqliteStore(SqliteStoreConfig(path=str(db)))  # creates the calibration tables too
     store.close()
+    with CalibrationStore(db) as cal:
+        cal.record_calibration("basin-1", Calibration(9.0, 90.0, 7.0), Verdict(True), ts=1.70e9)
+        cal.record_calibration("basin-1", Calibration(-4.0, 97.0, 7.0), Verdict(True), ts=1.71e9)
+        cal.record_calibration("basin-1", Calibration(30.0, 70.0, 7.0), Verdict(False, ("slope",)),
+                               ts=1.72e9)
     text = config_file().read_text().replace("  - id: basin-1\n",
                                               "  - id: basin-1\n    calibration: store\n")
     path = tmp_path / "store-cal.yaml"
     path.write_text(text + f"stores:\n  - type: sqlite\n    path: {db}\n")
     service = build_service(load_config(path), collectors=[])
-    out = service.converter.convert(ReadingBatch.from_columns(["basin-1"], [1.73e9], [20.0], [25.0]))
+    service.links.start()  # what Service.start does first: load the calibration history
+    out = service.converter.convert(ReadingBatch.from_columns(
+        ["basin-1", "basin-1", "basin-1"], [1.69e9, 1.705e9, 1.73e9], [20.0] * 3, [25.0] * 3))
     service.shutdown()
-    assert out.quality_names() == ["good"]
-    assert out.ph[0] == convert_readings(20.0, 25.0, -4.0, 97.0, 7.0).ph
+    assert out.quality_names() == ["uncalibrated", "good", "good"]
+    assert out.ph[1] == convert_readings(20.0, 25.0, 9.0, 90.0, 7.0).ph
+    assert out.ph[2] == convert_readings(20.0, 25.0, -4.0, 97.0, 7.0).ph
