@@ -77,6 +77,7 @@ class BareSubscriber:
 
         self.readings = 0
         self.messages = 0
+        self.errors = 0
         self.first = 0.0
         self.last = 0.0
         self._subscribed = threading.Event()
@@ -102,7 +103,7 @@ class BareSubscriber:
             self.messages += 1
             self.last = now
         except Exception:  # noqa: BLE001 - a raise would end paho's network thread
-            pass
+            self.errors += 1
 
     def wait_for(self, readings: int, timeout: float) -> bool:
         deadline = time.monotonic() + timeout

@@ -17,8 +17,17 @@ import argparse
 import tempfile
 from pathlib import Path
 
-from harness import PYTHON, REPO, band_rules, interleaved, json_lines, make_readings, result, \
-    run_pipe, write_config
+from harness import (
+    PYTHON,
+    REPO,
+    band_rules,
+    interleaved,
+    json_lines,
+    make_readings,
+    result,
+    run_pipe,
+    write_config,
+)
 
 N_PROBES = 1000
 

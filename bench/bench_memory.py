@@ -25,7 +25,6 @@ from pathlib import Path
 
 import numpy as np
 import orjson
-
 from harness import PYTHON, band_rules, probe_names, result, write_config
 
 N_PROBES = 1000
@@ -88,7 +87,7 @@ def main() -> int:
 
         proc = subprocess.Popen([PYTHON, "-m", "probeflow", "run", "--config", str(config)],
                                 stdin=subprocess.PIPE, stdout=subprocess.DEVNULL,
-                                stderr=open(tmpdir / "run.log", "wb"))
+                                stderr=open(tmpdir / "run.log", "wb"))  # noqa: SIM115 - lives as long as the child
         stop = threading.Event()
         counted: list[int] = []
         writer = threading.Thread(target=lambda: counted.append(feed(proc.stdin, args.rate, stop)))

@@ -39,7 +39,6 @@ from pathlib import Path
 
 import orjson
 import paho.mqtt.client as paho
-
 from baselines import BareSubscriber, bare_executemany, bare_readings_table
 from harness import PYTHON, T0, make_readings, result, timed, write_config
 from servers import Mosquitto
@@ -102,7 +101,7 @@ class ProbeflowRun:
             collectors=[{"type": "mqtt", "url": f"mqtt://127.0.0.1:{self.port}", "topic": TOPIC,
                          "qos": 1, "client_id": self.client_id}],
             stores=[{"type": "sqlite", "path": str(db)}])
-        log = open(self.tmp / f"{self.client_id}.log", "ab")
+        log = open(self.tmp / f"{self.client_id}.log", "ab")  # noqa: SIM115 - lives as long as the child
         return subprocess.Popen([PYTHON, "-m", "probeflow", "run", "--config", str(config)],
                                 stdout=subprocess.DEVNULL, stderr=log)
 
@@ -214,7 +213,7 @@ def main() -> int:
                                 cols["temp_c"].tolist(), cols["mv"].tolist(), cols["temp_c"].tolist(),
                                 cols["mv"].tolist(), ["good"] * len(cols["ts"])))
                 db = bare_readings_table(tmpdir / f"bare-{rep}.sqlite")
-                batch["executemany"].append(len(rows) / timed(lambda: bare_executemany(db, rows)))
+                batch["executemany"].append(len(rows) / timed(lambda db=db, rows=rows: bare_executemany(db, rows)))
                 db.close()
         finally:
             broker.kill()

@@ -22,7 +22,6 @@ from pathlib import Path
 
 import pyarrow as pa
 import pyarrow.parquet as pq
-
 from harness import PYTHON, REPO, interleaved, make_readings, result, write_config
 
 N_PROBES = 1000

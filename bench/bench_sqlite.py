@@ -14,11 +14,11 @@ Run:  .venv/bin/python bench/bench_sqlite.py [--readings N] [--batch B] [--repea
 from __future__ import annotations
 
 import argparse
+import math
 import tempfile
 from pathlib import Path
 
 import numpy as np
-
 from baselines import bare_executemany, bare_readings_table
 from harness import interleaved, make_readings, result
 
@@ -47,9 +47,9 @@ def rows_of(b: ProcessedBatch) -> list[tuple[object, ...]]:
     names = QUALITY_NAMES
     return [(p, t, m, c, h, u, d, names[q]) for p, t, m, c, h, u, d, q in zip(
         b.probe.tolist(), b.ts.tolist(), b.mv.tolist(),
-        [None if x != x else x for x in b.temp_c.tolist()], b.ph.tolist(),
-        [None if x != x else x for x in b.neutral_ph.tolist()],
-        [None if x != x else x for x in b.neutral_dev.tolist()], b.quality.tolist())]
+        [None if math.isnan(x) else x for x in b.temp_c.tolist()], b.ph.tolist(),
+        [None if math.isnan(x) else x for x in b.neutral_ph.tolist()],
+        [None if math.isnan(x) else x for x in b.neutral_dev.tolist()], b.quality.tolist())]
 
 
 def main() -> int:
@@ -79,7 +79,7 @@ def main() -> int:
         medians = interleaved({"ours": ours, "bare": bare}, args.repeat)
         # both files hold the same rows
         import sqlite3
-        last = sorted(Path(tmp).glob("ours-*.sqlite"))[-1]
+        last = max(Path(tmp).glob("ours-*.sqlite"))
         stored = sqlite3.connect(last).execute("SELECT count(*) FROM readings").fetchone()[0]
         if stored != n:
             raise RuntimeError(f"the store holds {stored} rows, expected {n}")

@@ -8,13 +8,14 @@ the RFC 3339 timestamps.
 
 from __future__ import annotations
 
+import math
 from datetime import UTC, datetime
 
 import numpy as np
 import orjson
 import pytest
+from perf_batches import processed_batch
 
-from conftest import processed_batch
 from probeflow.events import rfc3339
 from probeflow.stores.jsonl import encode_readings, reading_records, rfc3339_column, rfc3339_stamps
 
@@ -37,7 +38,7 @@ def test_every_line_is_valid_json_with_nulls_for_nan() -> None:
     for line, ph in zip(lines, batch.ph.tolist()):
         rec = orjson.loads(line)
         assert rec["kind"] == "reading"
-        assert rec["ph"] is None if ph != ph else rec["ph"] == ph
+        assert rec["ph"] is None if math.isnan(ph) else rec["ph"] == ph
 
 
 def test_times_across_decades_and_before_1970() -> None:

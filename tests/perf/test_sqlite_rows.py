@@ -11,7 +11,8 @@ import math
 import sqlite3
 from pathlib import Path
 
-from conftest import processed_batch
+from perf_batches import processed_batch
+
 from probeflow.batch import Quality
 from probeflow.stores.sqlite import SqliteStore, SqliteStoreConfig
 

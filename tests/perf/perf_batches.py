@@ -1,4 +1,4 @@
-"""Fixtures for the fast-path tests: invented processed batches."""
+"""Invented processed batches for the fast-path tests (helpers, not fixtures)."""
 
 from __future__ import annotations
 
