@@ -94,6 +94,10 @@ def _table(title: str, stats: dict[str, RuleStats]) -> list[str]:
     for s in stats.values():
         lines.append(f"  {s.rule:<24} {s.kind:<15} {s.activations:>11d} {_fmt_duration(s.active_s):>12} "
                      f"{s.chattering:>10d} {s.alarms:>6d}")
+    for s in stats.values():
+        if s.errors:
+            lines.append(f"  warning: rule {s.rule} ({s.kind}) raised an error in {s.errors} "
+                         "chunk(s); it was skipped there, so its counts are incomplete")
     return lines
 
 

@@ -46,6 +46,9 @@ def _summary(config: Any) -> list[str]:
                 parts.append(f"{len(items)} {group.replace('_', ' ')}")
         if getattr(config.rules, "diagnostics", None) is not None:
             parts.append("diagnostics")
+        for name, entries in getattr(config.rules, "plugin_sections", {}).items():
+            count = len(entries) if isinstance(entries, list) else 1
+            parts.append(f"{count} {name} (plugin)")
         lines.append(f"rules: {', '.join(parts) or 'none'}")
     for warning in config.warnings:
         lines.append(f"warning: {warning}")

@@ -42,12 +42,14 @@ import threading
 import time
 from typing import Any, ClassVar, Literal, cast
 
+import orjson
 import paho.mqtt.client as paho
 from paho.mqtt.subscribeoptions import SubscribeOptions
 from pydantic import ConfigDict, Field, field_validator
 
 from probeflow.collectors.base import CollectorConfigBase, CollectorContext
-from probeflow.collectors.mqtt_acks import AckEntry, AckLedger
+from probeflow.collectors.mqtt_acks import AckEntry, AckLedger, GroupAckSender
+from probeflow.collectors.mqtt_socket import buffer_reads
 from probeflow.collectors.parse import ParsedReadings, RecordParser
 from probeflow.collectors.ratelog import RateLimitedLog, default_logger
 from probeflow.mqtt_common import MqttConnectionConfig, build_client, connect_properties
@@ -141,6 +143,7 @@ class MqttCollector:
         self._probe_cache: dict[str, str | None] = {}
 
         self._client = build_client(config, manual_ack=True, persistent_session=True)
+        buffer_reads(self._client)   # many packets per recv() (collectors/mqtt_socket.py)
         self._client.on_connect = self._on_connect
         self._client.on_connect_fail = self._on_connect_fail
         self._client.on_disconnect = self._on_disconnect
@@ -149,7 +152,8 @@ class MqttCollector:
         self._client.on_unsubscribe = self._on_unsubscribe
         self._unsubacks: set[int] = set()
         self._unsuback_seen = threading.Condition()
-        self._acks = AckLedger(self._client.ack, name=context.name)
+        self._ack_sender = GroupAckSender(self._client)
+        self._acks = AckLedger(self._client.ack, name=context.name, send_group=self._ack_sender)
 
         self._inbox: list[tuple[int, paho.MQTTMessage]] = []
         self._inbox_lock = threading.Lock()
@@ -381,7 +385,7 @@ class MqttCollector:
             self._wake.wait(0.5)
             stopping = self._stopping.is_set()
             if linger and not stopping:
-                time.sleep(linger)
+                self._linger(linger)
             self._wake.clear()
             with self._inbox_lock:
                 items, self._inbox = self._inbox, []
@@ -396,6 +400,30 @@ class MqttCollector:
             if now - last_watch > 2.0:
                 last_watch = now
                 self._watch_network_thread()
+
+    _QUIET_GAP_S = 0.001
+
+    def _linger(self, linger: float) -> None:
+        """Let more messages join the group, for at most ``linger`` seconds, but
+        stop as soon as none arrived for ``_QUIET_GAP_S``.  The flow pauses when
+        the broker's in-flight window is full of messages waiting for their
+        acks: waiting longer then only delays those acks (and every message
+        behind them), so the group goes out at once."""
+        deadline = time.monotonic() + linger
+        inbox_size = self._inbox_size
+        seen = inbox_size()
+        while True:
+            left = deadline - time.monotonic()
+            if left <= 0:
+                return
+            time.sleep(min(self._QUIET_GAP_S, left))
+            now = inbox_size()
+            if now == seen:
+                return
+            seen = now
+
+    def _inbox_size(self) -> int:
+        return len(self._inbox)   # a read of the current list; no lock needed
 
     def _watch_network_thread(self) -> None:
         thread = getattr(self._client, "_thread", None)
@@ -427,16 +455,81 @@ class MqttCollector:
 
     def _process(self, items: list[tuple[int, paho.MQTTMessage]]) -> None:
         ctx = self.context
-        out = ParsedReadings()
+        entries = self._hold(items)
+        out = self._columns(items)
+        if out is None:
+            out = self._each(items)
+        for reason, rejected in out.rejects:
+            ctx.quarantine(reason, rejected)
+        # Every message of this group is acked once its readings are committed; a
+        # message whose readings were all rejected is acked then too, its rejects
+        # having been handed to the quarantine above.
+        if len(out):
+            ctx.emit(out.batch(on_committed=(functools.partial(self._acks.settle, entries),)))
+        elif entries:
+            self._acks.settle(entries)
+
+    def _hold(self, items: list[tuple[int, paho.MQTTMessage]]) -> list[AckEntry]:
+        """Register the group's QoS 1 messages with the ledger, in arrival order:
+        one entry per run of messages from the same connection."""
         entries: list[AckEntry] = []
-        rejects = out.rejects
-        hold = self._acks.hold
-        payload = self._parser.payload
+        run: list[int] = []
+        run_generation = None
+        hold_group = self._acks.hold_group
         for generation, msg in items:
-            raw = cast(bytes, msg.payload)
-            entry = hold(generation, msg.mid, msg.qos)
+            if msg.qos == 0:
+                continue
+            if generation != run_generation:
+                if run:
+                    entry = hold_group(run_generation, run)  # type: ignore[arg-type]
+                    if entry is not None:
+                        entries.append(entry)
+                run, run_generation = [], generation
+            run.append(msg.mid)
+        if run:
+            entry = hold_group(run_generation, run)  # type: ignore[arg-type]
             if entry is not None:
                 entries.append(entry)
+        return entries
+
+    def _columns(self, items: list[tuple[int, paho.MQTTMessage]]) -> ParsedReadings | None:
+        """Fast path for a group of single-reading messages that are all valid:
+        decode each payload, take the probe from the topic where the payload
+        names none, and check the group a column at a time
+        (``RecordParser.columns``, same values as the per-record checks).  None
+        when any message needs the per-message path (an array, a reject)."""
+        loads = orjson.loads
+        limit = self._parser.max_bytes
+        probe_for = self._probe_for_topic
+        objs: list[Any] = []
+        append = objs.append
+        try:
+            for _generation, msg in items:
+                raw = msg.payload
+                if len(raw) > limit:
+                    return None
+                obj = loads(raw)
+                if type(obj) is not dict:
+                    return None
+                if "probe" not in obj:
+                    obj["probe"] = probe_for(msg.topic)
+                append(obj)
+        except (orjson.JSONDecodeError, UnicodeDecodeError):
+            return None
+        cols = self._parser.columns(objs)
+        if cols is None:
+            return None
+        out = ParsedReadings()
+        out.probe, out.ts, out.mv, out.temp_c, out.ohms = cols
+        return out
+
+    def _each(self, items: list[tuple[int, paho.MQTTMessage]]) -> ParsedReadings:
+        """Every message checked on its own; each reject keeps its reason and topic."""
+        out = ParsedReadings()
+        rejects = out.rejects
+        payload = self._parser.payload
+        for _generation, msg in items:
+            raw = cast(bytes, msg.payload)
             try:
                 topic = msg.topic
             except UnicodeDecodeError:
@@ -447,12 +540,4 @@ class MqttCollector:
             for i in range(before, len(rejects)):
                 reason, rejected = rejects[i]
                 rejects[i] = (f"{reason} [topic {topic}]", rejected)
-        for reason, rejected in rejects:
-            ctx.quarantine(reason, rejected)
-        # Every message of this group is acked once its readings are committed; a
-        # message whose readings were all rejected is acked then too, its rejects
-        # having been handed to the quarantine above.
-        if len(out):
-            ctx.emit(out.batch(on_committed=(functools.partial(self._acks.settle, entries),)))
-        elif entries:
-            self._acks.settle(entries)
+        return out

@@ -109,9 +109,9 @@ def _user_key_path(loc: tuple[Any, ...], data: Any) -> KeyPath:
     out: list[str | int] = []
     node = data
     for part in loc:
-        if isinstance(node, dict) and part in node:
-            node = node[part]
-        elif isinstance(node, list) and isinstance(part, int) and 0 <= part < len(node):
+        in_data = (part in node) if isinstance(node, dict) else (
+            isinstance(node, list) and isinstance(part, int) and 0 <= part < len(node))
+        if in_data:
             node = node[part]
         elif not isinstance(part, int) and "[" in str(part):
             continue

@@ -11,6 +11,13 @@ changes.  Per rule it reports
 * chattering       activations that came within ``chatter_s`` of the previous
                    clear of the same alarm (60 s: common practice, no source)
 * alarms           distinct alarm ids that were ever active
+* errors           batches in which the rule raised (it is skipped for that
+                   batch and tried again with the next, as in the live engine)
+
+Rule kinds from plugins (``probeflow.rules`` entry points) run here exactly as
+in the live engine: the backtest has no separate vectorised copy of any kind,
+it calls the same rule objects' ``evaluate`` on large chunks, so a plugin's
+speed in the backtest is its own ``evaluate`` on those chunks.
 """
 
 from __future__ import annotations
@@ -24,6 +31,7 @@ from probeflow.batch import ProcessedBatch
 from probeflow.rules.config import RulesConfig
 from probeflow.rules.engine import build_rules
 from probeflow.rules.grouping import group_batch
+from probeflow.rules.guard import RuleGuard, rule_key
 from probeflow.rules.lifecycle import Transition
 
 __all__ = ["Backtest", "RuleStats", "compare", "run_backtest"]
@@ -39,6 +47,7 @@ class RuleStats:
     active_s: float = 0.0
     chattering: int = 0
     alarm_ids: set[str] = field(default_factory=set)
+    errors: int = 0
 
     @property
     def alarms(self) -> int:
@@ -46,7 +55,8 @@ class RuleStats:
 
     def as_dict(self) -> dict[str, object]:
         return {"rule": self.rule, "kind": self.kind, "activations": self.activations,
-                "active_s": self.active_s, "chattering": self.chattering, "alarms": self.alarms}
+                "active_s": self.active_s, "chattering": self.chattering, "alarms": self.alarms,
+                "errors": self.errors}
 
 
 class Backtest:
@@ -55,6 +65,7 @@ class Backtest:
     def __init__(self, config: RulesConfig, probe_ids: Sequence[str] = (),
                  chatter_s: float = DEFAULT_CHATTER_S) -> None:
         self.rules = build_rules(config, probe_ids)
+        self.guard = RuleGuard()
         self.chatter_s = chatter_s
         self.stats = {r.id: RuleStats(r.id, r.kind) for r in self.rules}
         self._raised_at: dict[str, float] = {}
@@ -69,9 +80,7 @@ class Backtest:
         if len(grouped) == 0:
             return
         self.readings += len(grouped)
-        transitions: list[Transition] = []
-        for rule in self.rules:
-            transitions.extend(rule.evaluate(grouped))
+        transitions = self.guard.evaluate(self.rules, grouped)
         self._last_seen.update(grouped.last_ts())
         self.end_ts = max(self.end_ts, float(grouped.t.max()))
         transitions.sort(key=lambda tr: tr.ts)
@@ -80,7 +89,9 @@ class Backtest:
 
     def _count(self, tr: Transition) -> None:
         aid = tr.alarm_id
-        st = self.stats[tr.rule]
+        st = self.stats.get(tr.rule)
+        if st is None:  # a plugin rule reporting under another rule id
+            st = self.stats[tr.rule] = RuleStats(tr.rule, "?")
         if tr.active:
             st.activations += 1
             st.alarm_ids.add(aid)
@@ -99,6 +110,8 @@ class Backtest:
         """Stats per rule id; alarms still active count as active up to the last reading."""
         for aid, since in self._raised_at.items():
             self.stats[self._rule_of[aid]].active_s += max(0.0, self.end_ts - since)
+        for rule in self.rules:
+            self.stats[rule.id].errors = self.guard.errors.get(rule_key(rule), 0)
         self._raised_at = {}
         return self.stats
 

@@ -1,7 +1,9 @@
 """The ``rules:`` section of the config, as typed pydantic models.
 
 Every sub-section is optional and defaults to empty; unknown keys are
-rejected with the key named.  The plain form of a band rule works as written::
+rejected with the key named.  A further key may name an installed rule-kind
+plugin (entry-point group ``probeflow.rules``, see :mod:`probeflow.rules.base`):
+its section is checked by that plugin's ``Config`` model.  The plain form of a band rule works as written::
 
     rules:
       bands:
@@ -23,17 +25,32 @@ system.
 
 from __future__ import annotations
 
+import difflib
+import functools
 import math
 from collections.abc import Mapping
 from itertools import pairwise
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    ModelWrapValidatorHandler,
+    TypeAdapter,
+    ValidationError,
+    ValidationInfo,
+    field_validator,
+    model_validator,
+)
+from pydantic_core import InitErrorDetails, PydanticCustomError
 
-from probeflow.errors import ConfigError
+from probeflow.errors import ConfigError, PluginError
 
 __all__ = [
     "BAND_LIMITS",
+    "BUILTIN_SECTIONS",
+    "SETTINGS_SECTIONS",
     "BandRuleConfig",
     "DiagnosticsConfig",
     "DriftRuleConfig",
@@ -312,8 +329,23 @@ class LabChecksConfig(_Strict):
     slope_forecast_min_points: int = Field(default=3, ge=3)
 
 
+BUILTIN_SECTIONS: tuple[str, ...] = ("bands", "rate_of_change", "diagnostics", "redundancy", "drift")
+"""Keys of ``rules:`` typed here, each the name of a built-in rule-kind plugin (build order)."""
+
+SETTINGS_SECTIONS: tuple[str, ...] = ("lab_checks",)
+"""Keys of ``rules:`` that hold settings for the service, not rules."""
+
+
 class RulesConfig(_Strict):
-    """The whole ``rules:`` section."""
+    """The whole ``rules:`` section.
+
+    Besides the sections below, a key may name an installed rule-kind plugin
+    (entry-point group ``probeflow.rules``): its section is a list of entries
+    (or one mapping, as the plugin declares), each checked by the plugin's own
+    ``Config`` model.  A key that names no installed plugin is refused.
+    """
+
+    model_config = ConfigDict(extra="allow", frozen=True)
 
     bands: list[BandRuleConfig] = Field(default_factory=list)
     rate_of_change: list[RateOfChangeRuleConfig] = Field(default_factory=list)
@@ -321,6 +353,33 @@ class RulesConfig(_Strict):
     redundancy: list[RedundancyRuleConfig] = Field(default_factory=list)
     drift: list[DriftRuleConfig] = Field(default_factory=list)
     lab_checks: LabChecksConfig = Field(default_factory=LabChecksConfig)
+
+    @model_validator(mode="wrap")
+    @classmethod
+    def _plugin_sections(cls, data: Any, handler: ModelWrapValidatorHandler[RulesConfig],
+                         info: ValidationInfo) -> RulesConfig:
+        """Typed sections through pydantic; any other key through its rule plugin's model."""
+        if not isinstance(data, Mapping) or all(k in cls.model_fields for k in data):
+            return handler(data)
+        errors: list[InitErrorDetails] = []
+        plugins: dict[str, Any] = {}
+        for key, raw in data.items():
+            if key in cls.model_fields:
+                continue
+            plugins[str(key)] = _validate_plugin_section(str(key), raw, info.context, errors)
+        model: RulesConfig | None = None
+        try:
+            model = handler({k: v for k, v in data.items() if k in cls.model_fields})
+        except ValidationError as exc:
+            if not errors:
+                raise
+            errors[:0] = [_line_error(e, ()) for e in exc.errors(include_url=False)]
+        if model is not None:
+            errors += _duplicate_ids(model, plugins)
+        if errors or model is None:
+            raise ValidationError.from_exception_data(cls.__name__, errors)
+        object.__setattr__(model, "__pydantic_extra__", plugins)
+        return model
 
     @model_validator(mode="after")
     def _unique_ids(self) -> RulesConfig:
@@ -331,6 +390,85 @@ class RulesConfig(_Strict):
                     raise ValueError(f"rule id {rule.id!r} is used twice; ids must be unique")
                 seen.add(rule.id)
         return self
+
+    @property
+    def plugin_sections(self) -> dict[str, Any]:
+        """Sections of rule-kind plugins that are not built in: key -> validated entries
+        (a list, or one model for a ``mapping`` kind)."""
+        return dict(self.model_extra or {})
+
+    def rule_sections(self) -> dict[str, list[BaseModel]]:
+        """Every non-empty rule-kind section, built-ins first, then plugins in file order:
+        section key (= plugin name) -> its validated entries."""
+        out: dict[str, list[BaseModel]] = {}
+        sections = [(k, getattr(self, k)) for k in BUILTIN_SECTIONS] + list(self.plugin_sections.items())
+        for key, value in sections:
+            entries = [value] if isinstance(value, BaseModel) else list(value or [])
+            if entries:
+                out[key] = entries
+        return out
+
+
+def _line_error(err: Any, prefix: tuple[int | str, ...]) -> InitErrorDetails:
+    """One pydantic error, re-raisable under ``prefix`` with its type, message and context."""
+    ctx = err.get("ctx")
+    detail = InitErrorDetails(type=PydanticCustomError(err["type"], err["msg"], ctx),
+                              loc=prefix + tuple(err["loc"]), input=err.get("input"))
+    return detail
+
+
+def _problem(loc: tuple[int | str, ...], message: str, value: Any) -> InitErrorDetails:
+    return InitErrorDetails(type=PydanticCustomError("value_error", "{error}", {"error": message}),
+                            loc=loc, input=value)
+
+
+def _validate_plugin_section(key: str, raw: Any, context: Any,
+                             errors: list[InitErrorDetails]) -> Any:
+    """Validate ``rules.<key>`` with the rule plugin named ``key``; problems go to ``errors``."""
+    from probeflow.plugins import RULES, available_plugins
+    from probeflow.rules.base import load_rule_kind, section_form_of
+
+    if key not in available_plugins(RULES):
+        installed = ", ".join(available_plugins(RULES)) or "none"
+        close = difflib.get_close_matches(key, [*available_plugins(RULES), *SETTINGS_SECTIONS], n=1)
+        hint = f'; did you mean "{close[0]}"?' if close else ""
+        errors.append(_problem((key,), f'no rule plugin "{key}" is installed (installed: '
+                               f"{installed}): unknown key{hint}", raw))
+        return None
+    try:
+        kind = load_rule_kind(key)
+    except PluginError as exc:
+        errors.append(_problem((key,), str(exc), raw))
+        return None
+    many = section_form_of(kind) == "list"
+    adapter = _adapter(kind.Config, many)
+    try:
+        return adapter.validate_python(raw, context=context)
+    except ValidationError as exc:
+        errors.extend(_line_error(e, (key,)) for e in exc.errors(include_url=False))
+        return None
+
+
+@functools.lru_cache(maxsize=64)
+def _adapter(model: type[BaseModel], many: bool) -> TypeAdapter[Any]:
+    return TypeAdapter(list[model] if many else model)  # type: ignore[valid-type]
+
+
+def _duplicate_ids(model: RulesConfig, plugins: Mapping[str, Any]) -> list[InitErrorDetails]:
+    """Rule ids must be unique across kinds too: an alarm id is ``rule/probe/limit``."""
+    seen = {r.id for g in (model.bands, model.rate_of_change, model.redundancy, model.drift) for r in g}
+    out = []
+    for key, value in plugins.items():
+        entries = value if isinstance(value, list) else [value] if value is not None else []
+        for i, entry in enumerate(entries):
+            rid = getattr(entry, "id", None)
+            if not isinstance(rid, str):
+                continue
+            if rid in seen:
+                loc = (key, i, "id") if isinstance(value, list) else (key, "id")
+                out.append(_problem(loc, f"rule id {rid!r} is used twice; ids must be unique", rid))
+            seen.add(rid)
+    return out
 
 
 def _key_path(loc: tuple[int | str, ...], prefix: str) -> str:

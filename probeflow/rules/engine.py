@@ -2,9 +2,11 @@
 
 ``Engine.process(batch)`` groups the batch by probe once, lets each rule find
 its condition changes vectorised, orders them by reading time and turns them
-into ISA-18.2 alert events.  Operator actions (ack, shelve, maintenance) go
-through the same object, so the service, the CLI and the tests share one
-implementation.  Alerts support operators; they are not a safety system.
+into ISA-18.2 alert events.  A rule that raises is skipped for that batch,
+counted, logged and tried again with the next (see :mod:`probeflow.rules.guard`).
+Operator actions (ack, shelve, maintenance) go through the same object, so the
+service, the CLI and the tests share one implementation.  Alerts support
+operators; they are not a safety system.
 """
 
 from __future__ import annotations
@@ -14,12 +16,12 @@ from collections.abc import Sequence
 from typing import Any
 
 from probeflow.batch import ProcessedBatch
-from probeflow.errors import ProbeflowError
+from probeflow.errors import PluginError, ProbeflowError
 from probeflow.events import AlertEvent
-from probeflow.rules.band import BandRule
-from probeflow.rules.base import Rule
+from probeflow.rules.base import Rule, load_rule_kind
 from probeflow.rules.config import RulesConfig
 from probeflow.rules.grouping import group_batch
+from probeflow.rules.guard import RuleGuard
 from probeflow.rules.lifecycle import AlarmBook, Transition
 
 __all__ = ["STATE_VERSION", "Engine", "build_rule_engine", "build_rules"]
@@ -28,29 +30,48 @@ STATE_VERSION = 1
 
 
 def build_rules(config: RulesConfig, probe_ids: Sequence[str] = ()) -> list[Rule]:
-    """Compile the config into rule objects, in config order."""
-    from probeflow.rules.diagnostics import DiagnosticRules
-    from probeflow.rules.drift import DriftRule
-    from probeflow.rules.rate import RateOfChangeRule
-    from probeflow.rules.redundancy import RedundancyRule
+    """Compile the config into rule objects: every rule-kind section (built-ins first,
+    then plugin sections in file order) through its ``probeflow.rules`` plugin.
 
-    rules: list[Rule] = [BandRule(c) for c in config.bands]
-    rules += [RateOfChangeRule(c) for c in config.rate_of_change]
-    if config.diagnostics is not None:
-        rules.append(DiagnosticRules(config.diagnostics, probe_ids))
-    rules += [RedundancyRule(c) for c in config.redundancy]
-    rules += [DriftRule(c) for c in config.drift]
+    Raises :class:`~probeflow.errors.PluginError` naming a plugin that cannot be
+    loaded or whose ``build`` fails.
+    """
+    rules: list[Rule] = []
+    for name, entries in config.rule_sections().items():
+        kind = load_rule_kind(name)
+        try:
+            built = list(kind.build(entries, tuple(probe_ids)))
+        except ProbeflowError:
+            raise
+        except Exception as exc:  # plugin code
+            raise PluginError(f'rules.{name}: the rule plugin "{name}" could not build its rules '
+                              f"({type(exc).__name__}: {exc})") from exc
+        for rule in built:
+            if not isinstance(rule, Rule):
+                raise PluginError(f'rules.{name}: the rule plugin "{name}" built {rule!r}, which '
+                                  "lacks id, kind, evaluate, tick, state or restore")
+        rules += built
     return rules
 
 
 class Engine:
     """Implements :class:`probeflow.rules.base.RuleEngine` plus operator actions."""
 
-    def __init__(self, rules: Sequence[Rule]) -> None:
+    def __init__(self, rules: Sequence[Rule], log: Any = None) -> None:
+        """``log``: where a failing rule is reported (``error(event, **fields)``, once a
+        minute per rule); failures are counted in ``counters["rule_errors"]`` and, per
+        rule, in :attr:`rule_errors` either way."""
         self.rules = list(rules)
         self.book = AlarmBook()
+        self.guard = RuleGuard(log)
         self._last_seen: dict[str, float] = {}
-        self.counters: dict[str, int] = {"readings": 0, "dropped_repeats_or_late": 0}
+        self.counters: dict[str, int] = {"readings": 0, "dropped_repeats_or_late": 0,
+                                         "rule_errors": 0}
+
+    @property
+    def rule_errors(self) -> dict[str, int]:
+        """Failures of ``evaluate``/``tick`` per rule (``"<kind>:<id>"``)."""
+        return dict(self.guard.errors)
 
     # --- the reading path ----------------------------------------------------------
     def process(self, batch: ProcessedBatch) -> list[AlertEvent]:
@@ -60,9 +81,8 @@ class Engine:
         if len(grouped) == 0:
             return []
         events = self.book.expire_shelves(float(grouped.t.min()))
-        transitions: list[Transition] = []
-        for rule in self.rules:
-            transitions.extend(rule.evaluate(grouped))
+        transitions = self.guard.evaluate(self.rules, grouped)
+        self.counters["rule_errors"] = self.guard.total
         self._last_seen.update(grouped.last_ts())
         events.extend(self._apply(transitions))
         return events
@@ -79,9 +99,8 @@ class Engine:
     def tick(self, now: float) -> list[AlertEvent]:
         """Time-based changes with no reading: shelving expiry, stale probes."""
         events = self.book.expire_shelves(now)
-        transitions: list[Transition] = []
-        for rule in self.rules:
-            transitions.extend(rule.tick(now))
+        transitions = self.guard.tick(self.rules, now)
+        self.counters["rule_errors"] = self.guard.total
         events.extend(self._apply(transitions))
         return events
 
@@ -131,7 +150,7 @@ class Engine:
     def state(self) -> dict[str, Any]:
         return {
             "version": STATE_VERSION,
-            "rules": {f"{r.kind}:{r.id}": r.state() for r in self.rules},
+            "rules": self.guard.state(self.rules),
             "alarms": self.book.state(),
             "last_seen": dict(self._last_seen),
         }
@@ -143,13 +162,14 @@ class Engine:
                 "delete the state file to start with all alarms normal"
             )
         saved = state.get("rules", {})
-        for r in self.rules:
-            r.restore(saved.get(f"{r.kind}:{r.id}", {}))
+        self.guard.restore(self.rules, saved)
+        self.counters["rule_errors"] = self.guard.total
         self.book.restore(state.get("alarms", {}))
         self._last_seen = {k: float(v) for k, v in state.get("last_seen", {}).items()
                            if v is not None and math.isfinite(float(v))}
 
 
-def build_rule_engine(config: RulesConfig, probe_ids: Sequence[str] = ()) -> Engine:
-    """The engine for a validated ``rules:`` section; ``probe_ids`` are the configured probes."""
-    return Engine(build_rules(config, probe_ids))
+def build_rule_engine(config: RulesConfig, probe_ids: Sequence[str] = (), log: Any = None) -> Engine:
+    """The engine for a validated ``rules:`` section; ``probe_ids`` are the configured probes,
+    ``log`` receives failing rules (see :class:`Engine`)."""
+    return Engine(build_rules(config, probe_ids), log=log)

@@ -67,8 +67,9 @@ class ServiceStats:
     per_store: dict[str, dict[str, int]] = field(default_factory=dict)
 
 
-def build_rule_engine_for(config: LoadedConfig) -> Any:
-    """The rule engine for ``config.rules`` (None when there is no rules section)."""
+def build_rule_engine_for(config: LoadedConfig, log: Log | None = None) -> Any:
+    """The rule engine for ``config.rules`` (None when there is no rules section);
+    ``log`` receives rules that fail at run time (they are skipped and retried)."""
     if config.rules is None:
         return None
     for module_name in ("probeflow.rules", "probeflow.rules.config", "probeflow.rules.engine"):
@@ -78,6 +79,8 @@ def build_rule_engine_for(config: LoadedConfig) -> Any:
             continue
         build = getattr(module, "build_rule_engine", None)
         if build is not None:
+            if log is not None:
+                return build(config.rules, list(config.probe_ids), log=log)
             return build(config.rules, list(config.probe_ids))
     raise ConfigError("rules: the rules engine (build_rule_engine) is not available in this build",
                       path=config.path, problems=[("rules", "rules engine not available")])
@@ -317,7 +320,10 @@ class Service:
                 collector.stop(timeout=max(0.1, deadline - time.monotonic()))
             except Exception as exc:
                 self.log.error("collector_stop_failed", collector=name, error=str(exc))
-        self._input.put(_END)
+        try:  # the pipeline may be held by a store that cannot write: never wait past the deadline
+            self._input.put(_END, timeout=max(0.1, deadline - time.monotonic()))
+        except queue.Full:
+            self.log.error("pipeline_stuck_at_stop", queued_batches=self._input.qsize())
         self._thread.join(max(0.1, deadline - time.monotonic()))
         for worker in self.workers:
             worker.close(max(0.5, deadline - time.monotonic()))
@@ -548,7 +554,7 @@ def build_service(config: LoadedConfig, *, collectors: Sequence[PluginSection] |
 
         store_objects.append(("webhook", WebhookNotifier(config.notify.webhook, site=config.site,
                                                          log=log)))
-    engine = build_rule_engine_for(config) if rules else None
+    engine = build_rule_engine_for(config, log) if rules else None
     chosen = config.collectors if collectors is None else collectors
     service = Service(
         site=config.site, converter=converter,

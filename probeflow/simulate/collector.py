@@ -56,12 +56,21 @@ class SimulatorConfig(CollectorConfigBase):
         return None if value is None else parse_instant(value)
 
 
-def start_time(scenario_start: float, speed: float, start: float | None) -> float:
+def start_time(scenario_start: float, speed: float, start: float | None,
+               duration_ms: int | None = None) -> float:
     """The run's first timestamp: ``start`` if given; else the scenario's start for a fast
-    run (speed 0) and the present second for a paced one."""
+    run (speed 0), the present second for a real-time one (speed 1), and for an
+    accelerated one (speed > 1) the present second minus the run's duration, so
+    that simulated time catches up with the clock at the end of the run and no
+    reading is ever stamped in the future."""
     if start is not None:
         return start
-    return scenario_start if speed == 0 else float(int(time.time()))
+    if speed == 0:
+        return scenario_start
+    now = float(int(time.time()))
+    if speed > 1 and duration_ms:
+        return now - duration_ms / 1000.0
+    return now
 
 
 class SimulatorCollector:
@@ -74,7 +83,8 @@ class SimulatorCollector:
         self.config = config
         self.context = context
         scenario = load_scenario(config.scenario)       # ConfigError names file and key
-        start = start_time(scenario.start, config.speed, config.start)
+        duration_ms = scenario.duration if config.duration is None else config.duration
+        start = start_time(scenario.start, config.speed, config.start, duration_ms)
         self.simulation = Simulation(scenario, config.seed, start=start, duration_ms=config.duration)
         self._thread: threading.Thread | None = None
         self._done = threading.Event()

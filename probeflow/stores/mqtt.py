@@ -3,12 +3,23 @@
 For dashboards and other plant systems that listen on MQTT.  It is a copy of
 what the durable stores keep, so it never holds up the reading path:
 
-* ``write`` only appends the batch to a bounded in-memory queue; a publisher
-  thread formats and publishes with its own client (QoS 1 by default).
-* While the broker is away, paho keeps up to ``client_queue_max`` messages and
-  resends them on reconnect; beyond that the queue here fills, and readings
-  that do not fit are dropped, counted in ``counters.dropped`` and logged (once
-  a minute), never silently.  Alert events are always queued.
+* ``write`` only appends to in-memory queues and returns; a publisher thread
+  formats and publishes with its own client (QoS 1 by default).
+* **Alert events go first.**  They have their own queue, which the publisher
+  empties before it takes readings and again between any two reading
+  messages, so an alert never waits behind readings queued before it.
+  Readings are handed to paho only while fewer than ``readings_in_flight``
+  messages wait for the broker's PUBACK, and paho's in-flight limit is set
+  above that, so neither paho's own queue nor its in-flight window fills with
+  readings ahead of an alert.
+* **Readings are published in groups.**  Every pass takes all queued reading
+  batches (up to ``readings_per_pass`` readings); with ``group_readings`` each
+  probe's readings of the pass go out as one JSON array.
+* While the broker is away, readings wait in the bounded queue here
+  (``queue_max_readings``); readings that do not fit are dropped, counted in
+  ``counters.dropped`` and logged (once a minute), never silently.  Alert
+  events are never dropped: they are always queued, and paho keeps them (up
+  to ``client_queue_max`` messages) and resends them on reconnect.
 * ``flush`` waits at most ``flush_timeout_s`` for the broker to confirm what was
   queued; ``close`` flushes and disconnects.
 
@@ -50,6 +61,9 @@ __all__ = ["MqttRepublishConfig", "MqttRepublishStore", "RepublishCounters"]
 _READING_KEYS = frozenset({"site", "probe"})
 _ALERT_KEYS = frozenset({"site", "probe", "rule", "limit", "alarm_id"})
 _TOPIC_UNSAFE = str.maketrans({"+": "_", "#": "_", "\0": "_"})
+_ALERT_HEADROOM = 100
+"""In-flight slots of the publishing client kept free of readings, for alert events."""
+_WINDOW_POLL_S = 0.001
 
 
 def _check_template(template: str, allowed: frozenset[str]) -> str:
@@ -79,6 +93,8 @@ class MqttRepublishConfig(StoreConfigBase, MqttConnectionConfig):
     qos: Literal[0, 1] = 1
     group_readings: bool = False        # one JSON array per probe and batch instead of one message per reading
     queue_max_readings: int = Field(default=100_000, gt=0)
+    readings_in_flight: int = Field(default=500, gt=0, le=60_000)   # unconfirmed reading messages at most
+    readings_per_pass: int = Field(default=20_000, gt=0)
     client_queue_max: int = Field(default=20_000, gt=0)
     flush_timeout_s: float = Field(default=2.0, ge=0, le=60)
 
@@ -98,6 +114,8 @@ class RepublishCounters:
     published: int = 0      # messages handed to the client
     confirmed: int = 0      # acknowledged by the broker (QoS 1)
     dropped: int = 0        # readings that did not fit the queue (counted, logged)
+    alerts_published: int = 0   # alert messages handed to the client
+    alerts_not_sent: int = 0    # alert messages paho refused: QoS 0 while disconnected, or at close
     connected: bool = False
     last_error: str = ""
     lock: threading.Lock = field(default_factory=threading.Lock, repr=False)
@@ -120,7 +138,8 @@ class MqttRepublishStore:
         self.site = context.site
         self.counters = RepublishCounters()
         self._log = RateLimitedLog(default_logger(context.log, "probeflow.stores.mqtt"))
-        self._queue: deque[tuple[ProcessedBatch | None, tuple[AlertEvent, ...]]] = deque()
+        self._alerts: deque[AlertEvent] = deque()
+        self._readings: deque[ProcessedBatch] = deque()
         self._queued_readings = 0
         self._cond = threading.Condition()
         self._busy = False
@@ -129,6 +148,8 @@ class MqttRepublishStore:
 
         self._client = build_client(config)
         self._client.max_queued_messages_set(config.client_queue_max)
+        # Room in paho's in-flight window beyond the readings' share, for alerts.
+        self._client.max_inflight_messages_set(config.readings_in_flight + _ALERT_HEADROOM)
         self._client.on_connect = self._on_connect
         self._client.on_disconnect = self._on_disconnect
         self._client.on_connect_fail = self._on_connect_fail
@@ -142,12 +163,14 @@ class MqttRepublishStore:
     # -- Store interface ------------------------------------------------------------
     def write(self, batch: ProcessedBatch, alerts: Sequence[AlertEvent]) -> None:
         n = len(batch)
-        alerts = tuple(alerts)
         with self._cond:
             keep = n > 0 and self._queued_readings + n <= self.config.queue_max_readings
+            if keep:
+                self._readings.append(batch)
+                self._queued_readings += n
+            if alerts:
+                self._alerts.extend(alerts)
             if keep or alerts:
-                self._queue.append((batch if keep else None, alerts))
-                self._queued_readings += n if keep else 0
                 self._cond.notify()
         if n and not keep:
             with self.counters.lock:
@@ -167,7 +190,7 @@ class MqttRepublishStore:
         deadline = time.monotonic() + self.config.flush_timeout_s
         while time.monotonic() < deadline:
             with self._cond:
-                idle = not self._queue and not self._busy
+                idle = not self._readings and not self._alerts and not self._busy
             with self.counters.lock:
                 confirmed = self.counters.confirmed >= self.counters.published or self.config.qos == 0
             if idle and confirmed:
@@ -229,27 +252,52 @@ class MqttRepublishStore:
 
     # -- publisher thread ---------------------------------------------------------------
     def _run(self) -> None:
+        per_pass = self.config.readings_per_pass
         while True:
             with self._cond:
-                while not self._queue and not self._closing.is_set():
+                while not self._readings and not self._alerts and not self._closing.is_set():
                     self._cond.wait(0.5)
-                if not self._queue:
+                if not self._readings and not self._alerts:
                     return
-                batch, alerts = self._queue.popleft()
+                batches: list[ProcessedBatch] = []
+                rows = 0
+                while self._readings and (not batches or rows + len(self._readings[0]) <= per_pass):
+                    batch = self._readings.popleft()
+                    batches.append(batch)
+                    rows += len(batch)
                 self._busy = True
             try:
-                if batch is not None:
-                    self._publish_readings(batch)
-                if alerts:
-                    self._publish_alerts(alerts)
+                self._publish_waiting_alerts()
+                if batches:
+                    self._publish_readings(batches)
             except Exception as exc:  # noqa: BLE001 - never let the publisher thread die
                 self._log.error("mqtt_republish_failed", repr(exc))
             finally:
                 with self._cond:
-                    self._queued_readings -= 0 if batch is None else len(batch)
+                    self._queued_readings -= rows
                     self._busy = False
 
-    def _publish(self, topic: str, payload: bytes, retain: bool = False) -> None:
+    def _publish_waiting_alerts(self) -> None:
+        """Publish every queued alert event now (called between reading messages)."""
+        while self._alerts:   # a plain read; popping takes the lock
+            with self._cond:
+                alerts = list(self._alerts)
+                self._alerts.clear()
+            self._publish_alerts(alerts)
+
+    def _wait_for_window(self) -> None:
+        """Hold further readings while ``readings_in_flight`` messages await
+        their PUBACK (QoS 1), publishing any alert that comes in meanwhile."""
+        if self.config.qos == 0:
+            return
+        window = self.config.readings_in_flight
+        counters = self.counters
+        while counters.published - counters.confirmed >= window and not self._closing.is_set():
+            if self._alerts:
+                self._publish_waiting_alerts()
+            time.sleep(_WINDOW_POLL_S)
+
+    def _publish(self, topic: str, payload: bytes, retain: bool = False, alert: bool = False) -> None:
         qos = self.config.qos
         while True:
             info = self._client.publish(topic, payload, qos=qos, retain=retain)
@@ -257,17 +305,25 @@ class MqttRepublishStore:
                 break
             # the client's own queue is full (broker away for long): wait, unless closing
             if self._closing.is_set():
-                with self.counters.lock:
-                    self.counters.dropped += 1
+                self._not_sent(alert)
                 return
             time.sleep(0.05)
+        if qos == 0 and info.rc == paho.MQTT_ERR_NO_CONN:
+            self._not_sent(alert)       # QoS 0 is not kept while disconnected
+            return
         with self.counters.lock:
-            if qos == 0 and info.rc == paho.MQTT_ERR_NO_CONN:
-                self.counters.dropped += 1      # QoS 0 is not kept while disconnected
-                return
             self.counters.published += 1
+            if alert:
+                self.counters.alerts_published += 1
             if qos == 0:
                 self.counters.confirmed += 1
+
+    def _not_sent(self, alert: bool) -> None:
+        with self.counters.lock:
+            if alert:
+                self.counters.alerts_not_sent += 1
+            else:
+                self.counters.dropped += 1
 
     def _reading_topic(self, probe: str) -> str:
         topic = self._topics.get(probe)
@@ -277,26 +333,41 @@ class MqttRepublishStore:
             self._topics[probe] = topic
         return topic
 
-    def _publish_readings(self, batch: ProcessedBatch) -> None:
+    def _records(self, batch: ProcessedBatch) -> list[dict[str, Any]]:
         names = QUALITY_NAMES
-        dumps = orjson.dumps
         rows = zip(
             batch.probe.tolist(), rfc3339_column(batch.ts), _nulls(batch.mv), _nulls(batch.temp_c),
             _nulls(batch.ph), _nulls(batch.neutral_ph), _nulls(batch.neutral_dev), batch.quality.tolist(),
         )
-        records = [
+        return [
             {"kind": "reading", "probe": p, "ts": t, "mv": m, "temp_c": c, "ph": h,
              "neutral_ph": n, "neutral_dev": d, "quality": names[q]}
             for p, t, m, c, h, n, d, q in rows
         ]
+
+    def _publish_readings(self, batches: Sequence[ProcessedBatch]) -> None:
+        """Readings of one pass, in queue order; waiting alerts go out between messages."""
+        dumps = orjson.dumps
         if not self.config.group_readings:
-            for rec in records:
-                self._publish(self._reading_topic(rec["probe"]), dumps(rec))
+            for batch in batches:
+                for rec in self._records(batch):
+                    self._wait_for_window()
+                    if self._alerts:
+                        self._publish_waiting_alerts()
+                    self._publish(self._reading_topic(rec["probe"]), dumps(rec))
             return
         groups: dict[str, list[dict[str, Any]]] = {}
-        for rec in records:
-            groups.setdefault(rec["probe"], []).append(rec)
+        for batch in batches:
+            for rec in self._records(batch):
+                group = groups.get(rec["probe"])
+                if group is None:
+                    groups[rec["probe"]] = [rec]
+                else:
+                    group.append(rec)
         for probe, recs in groups.items():
+            self._wait_for_window()
+            if self._alerts:
+                self._publish_waiting_alerts()
             self._publish(self._reading_topic(probe), dumps(recs))
 
     def _publish_alerts(self, alerts: Sequence[AlertEvent]) -> None:
@@ -310,6 +381,6 @@ class MqttRepublishStore:
                 "rule": alert.rule.translate(_TOPIC_UNSAFE), "limit": alert.limit.translate(_TOPIC_UNSAFE),
                 "alarm_id": alert.alarm_id.translate(_TOPIC_UNSAFE),
             }
-            self._publish(cfg.alerts_topic.format(**keys), payload)
+            self._publish(cfg.alerts_topic.format(**keys), payload, alert=True)
             if cfg.alarm_state_topic is not None:
-                self._publish(cfg.alarm_state_topic.format(**keys), payload, retain=True)
+                self._publish(cfg.alarm_state_topic.format(**keys), payload, retain=True, alert=True)

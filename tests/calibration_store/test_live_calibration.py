@@ -15,9 +15,11 @@ import pty
 import select
 import subprocess
 import time
+from pathlib import Path
 
 import numpy as np
-from conftest import PYTHON
+
+PYTHON = Path(__file__).resolve().parents[2] / ".venv" / "bin" / "python"
 
 from probeflow.buffers import buffer_ph
 from probeflow.calibration.live import CollectorTap, StoreTail

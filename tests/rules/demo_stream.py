@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
-from conftest import T0
+from rules_support import T0
 
 from probeflow.batch import ProcessedBatch
 

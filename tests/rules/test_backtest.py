@@ -10,8 +10,8 @@ from itertools import pairwise
 
 import numpy as np
 import pytest
-from conftest import T0
 from demo_stream import recording
+from rules_support import T0
 
 from probeflow.batch import QUALITY_NAMES, ProcessedBatch
 from probeflow.events import rfc3339

@@ -13,8 +13,8 @@ from itertools import pairwise
 
 import numpy as np
 import pytest
-from conftest import T0, batch_of, times
 from reference import naive_latch
+from rules_support import T0, batch_of, times
 
 from probeflow.rules import build_rule_engine, parse_rules_config
 

@@ -6,7 +6,7 @@ import json
 import subprocess
 import sys
 
-from conftest import batch_of
+from rules_support import batch_of
 
 from probeflow.rules import build_rule_engine, parse_rules_config
 

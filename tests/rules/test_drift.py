@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from conftest import T0
+from rules_support import T0
 from scipy.stats import theilslopes
 
 from probeflow.batch import ProcessedBatch

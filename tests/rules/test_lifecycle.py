@@ -7,7 +7,7 @@ from __future__ import annotations
 import json
 
 import pytest
-from conftest import T0, batch_of
+from rules_support import T0, batch_of
 
 from probeflow.errors import ProbeflowError
 from probeflow.rules import build_rule_engine, parse_rules_config

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
-from conftest import batch_of, times
+from rules_support import batch_of, times
 
 from probeflow.rules import build_rule_engine, parse_rules_config
 from probeflow.rules.rate import rolling_rate_per_min

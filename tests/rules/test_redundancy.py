@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 
 import numpy as np
-from conftest import T0, batch_of
+from rules_support import T0, batch_of
 
 from probeflow.rules import build_rule_engine, parse_rules_config
 from probeflow.rules.redundancy import odd_one_out

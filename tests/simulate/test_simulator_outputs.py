@@ -275,3 +275,29 @@ def test_paced_run_spreads_readings_over_simulated_time_divided_by_speed() -> No
     stop_pacer = Pacer(600.0, sim.start, clock=lambda: now[0], sleep=lambda s: True)
     assert run_simulation(Simulation(_scenario(), 1, duration_ms=600_000), [Recorder()],
                           pacer=stop_pacer).delivered < 10
+
+
+def test_accelerated_run_never_stamps_a_reading_in_the_future(tmp_path) -> None:
+    """speed > 1 without a start: the run is placed so that simulated time reaches the present
+    at its end (the demo's readings must not read "in the future" in status views)."""
+    import yaml
+    from sim_scenarios import BASE
+
+    path = tmp_path / "plant.yaml"
+    path.write_text(yaml.safe_dump(BASE))
+    batches: list[ReadingBatch] = []
+    ctx = CollectorContext("sim", batches.append, lambda item: None)
+    config = SimulatorCollector.Config.model_validate(
+        {"type": "simulator", "scenario": str(path), "speed": 1200, "duration": "10min", "seed": 4})
+    col = SimulatorCollector(config, ctx)
+    wall_start = time.time()
+    col.start()
+    deadline = time.monotonic() + 60
+    while not col.done and time.monotonic() < deadline:
+        time.sleep(0.05)
+    col.stop()
+    wall_end = time.time()
+    got = ReadingBatch.concat(batches)
+    assert col.done and len(got) > 0
+    assert got.ts.max() <= wall_end
+    assert got.ts.min() >= wall_start - 600 - 1     # ten simulated minutes before the start
