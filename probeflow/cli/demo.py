@@ -29,6 +29,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--print-every", type=parse_duration, default=600.0, metavar="DURATION",
                         help="at most one reading line per probe per this much simulated time "
                              "(default 10m)")
+    parser.add_argument("--keep", action="store_true",
+                        help="keep the demo store of an earlier run (default: start it afresh, "
+                             "so two runs' invented data do not overlap in time)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -41,6 +44,12 @@ def run(args: argparse.Namespace) -> int:
     print(CAUTION, flush=True)
     print(f"Demo site {config.site!r}: {len(config.probes)} probes, running for "
           f"{args.duration:g} s (Ctrl-C stops early).", flush=True)
+    if not args.keep:
+        for store in config.stores:
+            if store.type == "sqlite":
+                base = Path(str(store.config.path))
+                for old in (base, Path(f"{base}-wal"), Path(f"{base}-shm")):
+                    old.unlink(missing_ok=True)
     view = ConsoleView(sys.stdout, args.print_every)
     service = build_service(config, extra_stores=[("console", view)], log=log)
     with stop_on_signals(service):
@@ -51,6 +60,9 @@ def run(args: argparse.Namespace) -> int:
           f"{stats.quarantined} inputs quarantined."
           + (f" Stored in {', '.join(where)}." if where else ""), flush=True)
     if where and Path(where[0]).exists():
-        print(f"Look inside: sqlite3 {where[0]} 'SELECT probe, COUNT(*), AVG(ph) FROM readings "
-              "GROUP BY probe'", flush=True)
+        print("Next: every probe on one screen, then a report with a plot per probe:\n"
+              f"  .venv/bin/probeflow status --config {args.config} --once\n"
+              f"  .venv/bin/probeflow report --config {args.config} --since 2h --until latest "
+              "--out demo-report.html\n"
+              "What to look at, and which alarms fire and why: docs/README-tour.md", flush=True)
     return 0
