@@ -14,9 +14,16 @@ without waiting in ``select``.  Everything else (send, fileno, close, options)
 goes to the socket unchanged.  The bytes paho sees are exactly the bytes
 received, in order (tested against the unbuffered socket).
 
+paho's ``loop_read`` handles one packet per pass of its loop (and one
+``select``) for a client that only subscribes; :func:`buffer_reads` also lets a
+pass handle every complete packet already in the buffer, up to
+:data:`PACKETS_PER_PASS`, so the network thread goes through ``select`` (and
+gives up the GIL) once per buffer-full rather than once per message.
+
 Only plain TCP sockets are wrapped; TLS and WebSocket connections keep paho's
 own reading.  :func:`buffer_reads` hooks the client's socket factory
-(``Client._create_socket``, paho-mqtt 2.x); a paho without it is left as is.
+(``Client._create_socket``) and its ``loop_read`` (paho-mqtt 2.x); a paho
+without them is left as is.
 """
 
 from __future__ import annotations
@@ -28,6 +35,9 @@ __all__ = ["READ_CHUNK", "BufferedSocketReader", "buffer_reads"]
 
 READ_CHUNK = 65536
 """Bytes asked of the kernel per ``recv`` [B]."""
+
+PACKETS_PER_PASS = 64
+"""Buffered packets handled per pass of paho's network loop, at most."""
 
 
 class BufferedSocketReader:
@@ -81,4 +91,27 @@ def buffer_reads(client: Any) -> bool:
         return BufferedSocketReader(sock) if type(sock) is socket.socket else sock
 
     client._create_socket = create_buffered
+    _read_buffered_packets(client)
     return True
+
+
+def _read_buffered_packets(client: Any) -> None:
+    """Let one network-loop pass handle every complete packet already buffered
+    (up to :data:`PACKETS_PER_PASS`), not just one: paho's ``loop_read`` handles
+    a single packet per ``select`` for a client that only subscribes."""
+    read_one = getattr(client, "loop_read", None)
+    if not callable(read_one):
+        return
+
+    def loop_read(max_packets: int = 1) -> Any:
+        rc = read_one(max_packets)
+        sock = getattr(client, "_sock", None)
+        if type(sock) is not BufferedSocketReader:
+            return rc
+        passes = 1
+        while not rc and passes < PACKETS_PER_PASS and sock.pending() and client._sock is sock:
+            rc = read_one(max_packets)
+            passes += 1
+        return rc
+
+    client.loop_read = loop_read
