@@ -13,18 +13,25 @@ Tables
                operator commands (ack, shelve, unshelve) queued for the running
                service (``probeflow.service.alarm_commands``)
 
-Every ``write`` is one transaction (executemany per table), committed before
-it returns, so the service may acknowledge the batch's sources afterwards.
+Every ``write`` is one transaction, committed before it returns, so the
+service may acknowledge the batch's sources afterwards.  Readings go in as
+multi-row ``INSERT ... VALUES (...),(...)`` statements of 1, 2, 4, ... 512 rows
+(at most ten distinct statements, each prepared once): one statement runs
+with a single release of the interpreter lock, where ``executemany`` gives it
+up and waits to take it back for every row, which is slow while the MQTT
+client and the pipeline threads keep the interpreter busy.
 The file is created with mode 0600 (SQLite gives its -wal and -shm files the
 same mode).  ``ts`` is epoch seconds (REAL, UTC); NaN is stored as NULL.
 """
 
 from __future__ import annotations
 
+import functools
+import itertools
 import os
 import sqlite3
 import threading
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from pathlib import Path
 from typing import Any, Literal
 
@@ -68,6 +75,53 @@ _ALERT_INSERT = (
 )
 
 
+_READING_COLUMNS = 8
+_MAX_STATEMENT_ROWS = 512   # power of two; lowered at connect time if SQLite allows fewer parameters
+
+
+@functools.cache
+def _readings_insert(rows: int) -> str:
+    values = ",".join(["(" + ",".join(["?"] * _READING_COLUMNS) + ")"] * rows)
+    return f"INSERT OR IGNORE INTO readings VALUES {values}"
+
+
+def _statement_rows(db: sqlite3.Connection) -> int:
+    """The largest power of two <= _MAX_STATEMENT_ROWS whose parameters fit this SQLite build."""
+    limit = max(1, db.getlimit(sqlite3.SQLITE_LIMIT_VARIABLE_NUMBER) // _READING_COLUMNS)
+    rows = _MAX_STATEMENT_ROWS
+    while rows > limit:
+        rows //= 2
+    return rows
+
+
+def _statement_sizes(rows: int, most: int) -> Iterator[int]:
+    """Rows per statement: full statements of ``most`` (a power of two), then
+    the remainder as powers of two (so only a few distinct statements exist)."""
+    full, rest = divmod(rows, most)
+    yield from itertools.repeat(most, full)
+    size = most // 2
+    while rest:
+        if rest >= size:
+            yield size
+            rest -= size
+        size //= 2
+
+
+def _reading_statements(batch: ProcessedBatch, most: int) -> list[tuple[str, Any]]:
+    """(sql, parameters) for one ``execute`` each, covering every row of ``batch``."""
+    flat = list(itertools.chain.from_iterable(zip(
+        batch.probe.tolist(), batch.ts.tolist(), batch.mv.tolist(), batch.temp_c.tolist(),
+        batch.ph.tolist(), batch.neutral_ph.tolist(), batch.neutral_dev.tolist(),
+        _QUALITY_ARRAY[batch.quality].tolist())))
+    statements = []
+    start = 0
+    for size in _statement_sizes(len(batch), most):
+        stop = start + size * _READING_COLUMNS
+        statements.append((_readings_insert(size), flat[start:stop]))
+        start = stop
+    return statements
+
+
 class SqliteStoreConfig(StoreConfigBase):
     type: Literal["sqlite"] = "sqlite"
     path: str = "data/probeflow.sqlite"
@@ -105,25 +159,21 @@ class SqliteStore:
             self._db.executescript(SCHEMA)
             create_calibration_tables(self._db)
             create_command_table(self._db)
+            self._statement_rows = _statement_rows(self._db)
         except (OSError, sqlite3.Error) as exc:
             raise StoreError(f"cannot open the SQLite store {self.path}: {exc}") from exc
 
     # -- Store protocol -----------------------------------------------------------
     def write(self, batch: ProcessedBatch, alerts: Sequence[AlertEvent]) -> None:
-        rows = zip(batch.probe.tolist(), batch.ts.tolist(), batch.mv.tolist(),
-                   batch.temp_c.tolist(), batch.ph.tolist(), batch.neutral_ph.tolist(),
-                   batch.neutral_dev.tolist(), _QUALITY_ARRAY[batch.quality].tolist())
         alert_rows = [(a.alarm_id, a.rule, a.probe, a.quantity, a.limit, a.event, a.state, a.ts,
                        a.value, a.threshold, a.severity, a.message) for a in alerts]
-        self._transaction(
-            ("INSERT OR IGNORE INTO readings VALUES (?,?,?,?,?,?,?,?)", rows),
-            (_ALERT_INSERT, alert_rows),
-        )
+        self._transaction(*((sql, None, params) for sql, params in _reading_statements(batch, self._statement_rows)),
+                          (_ALERT_INSERT, alert_rows, None))
 
     def write_quarantine(self, items: Sequence[QuarantineItem]) -> None:
         rows = [(i.source, i.reason, i.raw, i.received_ts) for i in items]
         self._transaction(
-            ("INSERT INTO quarantine (source, reason, raw, received_ts) VALUES (?,?,?,?)", rows))
+            ("INSERT INTO quarantine (source, reason, raw, received_ts) VALUES (?,?,?,?)", rows, None))
 
     def flush(self) -> None:
         """Nothing to do: every write is committed before it returns."""
@@ -135,13 +185,18 @@ class SqliteStore:
             except sqlite3.Error as exc:
                 raise StoreError(f"closing the SQLite store {self.path} failed: {exc}") from exc
 
-    def _transaction(self, *statements: tuple[str, Any]) -> None:
+    def _transaction(self, *statements: tuple[str, Any, Any]) -> None:
+        """One transaction: each statement is (sql, rows for executemany or None,
+        parameters for one execute or None); empty row lists are skipped."""
         with self._lock:
             try:
                 self._db.execute("BEGIN IMMEDIATE")
                 try:
-                    for sql, rows in statements:
-                        self._db.executemany(sql, rows)
+                    for sql, rows, params in statements:
+                        if params is not None:
+                            self._db.execute(sql, params)
+                        elif rows:
+                            self._db.executemany(sql, rows)
                     self._db.execute("COMMIT")
                 except BaseException:
                     self._db.execute("ROLLBACK")
