@@ -458,3 +458,16 @@ def publish_stream(publisher: AtLeastOncePublisher, stream: Stream, rate_per_s: 
     for i in paced(range(stream.n), rate_per_s):
         publisher.publish(i, stream.topic(i, prefix), stream.payload(i))
     publisher.settle()
+
+
+def assert_every_reading_once(db: Path, victoria: Any, stream: Stream, n: int) -> None:
+    """The end state every scenario must reach: the n readings of ``stream`` exactly once in
+    SQLite (rows == distinct (probe, ts) == n, the same keys) and in victoria-metrics (no
+    series holding a timestamp twice, n samples, the same keys at millisecond precision)."""
+    rows, distinct = sqlite_counts(db)
+    assert (rows, distinct) == (n, n)
+    assert set(sqlite_keys(db)) == {(stream.probe(i), stream.ts(i)) for i in range(n)}
+    counts = victoria_counts(victoria)
+    assert counts.duplicated_series == {}
+    assert (counts.samples, counts.distinct) == (n, n)
+    assert counts.keys == expected_ms_keys(stream, range(n))

@@ -25,12 +25,11 @@ from fault_harness import (
     Schedule,
     ServiceProcess,
     Stream,
-    expected_ms_keys,
+    assert_every_reading_once,
     handshake,
     mqtt_collector,
     publish_stream,
     sqlite_counts,
-    sqlite_keys,
     victoria_counts,
     wait_for_count,
     write_config,
@@ -86,13 +85,7 @@ def test_broker_killed_three_times_loses_and_duplicates_nothing(tmp_path, broker
     wait_for_count(lambda: victoria_counts(victoria).distinct, N, 60, "readings in victoria-metrics")
 
     assert len(crashes) == 3 and all(0 < c < N for c in crashes), crashes
-    rows, distinct = sqlite_counts(db)
-    assert (rows, distinct) == (N, N)
-    assert set(sqlite_keys(db)) == {(stream.probe(i), stream.ts(i)) for i in range(N)}
-    counts = victoria_counts(victoria)
-    assert counts.duplicated_series == {}
-    assert (counts.samples, counts.distinct) == (N, N)
-    assert counts.keys == expected_ms_keys(stream, range(N))
+    assert_every_reading_once(db, victoria, stream, N)
     log = service.log_text()
     assert log.count("mqtt_connected") >= 4, "the collector did not reconnect after each crash"
     assert "mqtt_session_lost" not in log, "the broker lost the collector's persistent session"

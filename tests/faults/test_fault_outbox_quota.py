@@ -25,6 +25,7 @@ from fault_harness import (
     AtLeastOncePublisher,
     ServiceProcess,
     Stream,
+    assert_every_reading_once,
     expected_ms_keys,
     handshake,
     mqtt_collector,
@@ -146,13 +147,7 @@ def test_block_loses_nothing_once_the_database_returns(tmp_path, mosquitto, vict
     wait_for_count(lambda: sqlite_counts(db)[1], N, 90, "readings in SQLite")
     wait_for_count(lambda: victoria_counts(victoria).distinct, N, 90, "readings in victoria-metrics")
 
-    rows, distinct = sqlite_counts(db)
-    assert (rows, distinct) == (N, N)
-    assert set(sqlite_keys(db)) == {(stream.probe(i), stream.ts(i)) for i in range(N)}
-    counts = victoria_counts(victoria)
-    assert counts.duplicated_series == {}
-    assert (counts.samples, counts.distinct) == (N, N)
-    assert counts.keys == expected_ms_keys(stream, range(N))
+    assert_every_reading_once(db, victoria, stream, N)
     assert _metric_sum(metrics_port, "probeflow_outbox_dropped_lines_total") == 0
     assert _metric_sum(metrics_port, "probeflow_store_lost_rows_total") == 0
     assert service.stop() == 0, service.log_tail()

@@ -23,7 +23,7 @@ import pytest
 from fault_harness import (
     ServiceProcess,
     Stream,
-    expected_ms_keys,
+    assert_every_reading_once,
     sqlite_counts,
     sqlite_keys,
     victoria_counts,
@@ -95,13 +95,7 @@ def test_serial_port_unplugged_three_times_loses_and_duplicates_nothing(tmp_path
 
     assert written == N
     assert len(stored_at_unplug) == SEGMENTS - 1
-    rows, distinct = sqlite_counts(db)
-    assert (rows, distinct) == (N, N)
-    assert set(sqlite_keys(db)) == {(stream.probe(i), stream.ts(i)) for i in range(N)}
-    counts = victoria_counts(victoria)
-    assert counts.duplicated_series == {}
-    assert (counts.samples, counts.distinct) == (N, N)
-    assert counts.keys == expected_ms_keys(stream, range(N))
+    assert_every_reading_once(db, victoria, stream, N)
     log = service.log_text()
     assert log.count("event=serial_opened") == SEGMENTS
     assert "event=serial_device_gone" in log     # logged once a minute per kind

@@ -18,12 +18,11 @@ from fault_harness import (
     Schedule,
     ServiceProcess,
     Stream,
-    expected_ms_keys,
+    assert_every_reading_once,
     handshake,
     mqtt_collector,
     publish_stream,
     sqlite_counts,
-    sqlite_keys,
     victoria_counts,
     wait_for_count,
     write_config,
@@ -71,12 +70,6 @@ def test_service_killed_three_times_loses_and_duplicates_nothing(tmp_path, mosqu
 
     assert service.starts == 4
     assert len(stored_at_crash) == 3 and all(0 < c < N for c in stored_at_crash), stored_at_crash
-    rows, distinct = sqlite_counts(db)
-    assert (rows, distinct) == (N, N)
-    assert set(sqlite_keys(db)) == {(stream.probe(i), stream.ts(i)) for i in range(N)}
-    counts = victoria_counts(victoria)
-    assert counts.duplicated_series == {}
-    assert (counts.samples, counts.distinct) == (N, N)
-    assert counts.keys == expected_ms_keys(stream, range(N))
+    assert_every_reading_once(db, victoria, stream, N)
     assert "mqtt_session_lost" not in service.log_text()
     assert service.stop() == 0, service.log_tail()

@@ -18,13 +18,12 @@ from fault_harness import (
     Schedule,
     ServiceProcess,
     Stream,
-    expected_ms_keys,
+    assert_every_reading_once,
     handshake,
     mqtt_collector,
     publish_stream,
     scrape_metrics,
     sqlite_counts,
-    sqlite_keys,
     victoria_counts,
     wait_for_count,
     write_config,
@@ -89,12 +88,6 @@ def test_tsdb_down_30_s_loses_and_duplicates_nothing(tmp_path, mosquitto, victor
 
     assert seen_in_outbox and seen_in_outbox[0] > 1000, (
         f"the outage did not show in the outbox depth: {seen_in_outbox}")
-    rows, distinct = sqlite_counts(db)
-    assert (rows, distinct) == (N, N)
-    assert set(sqlite_keys(db)) == {(stream.probe(i), stream.ts(i)) for i in range(N)}
-    counts = victoria_counts(victoria)
-    assert counts.duplicated_series == {}
-    assert (counts.samples, counts.distinct) == (N, N)
-    assert counts.keys == expected_ms_keys(stream, range(N))
+    assert_every_reading_once(db, victoria, stream, N)
     assert "not taking points" in service.log_text()
     assert service.stop() == 0, service.log_tail()
