@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import sys
 from collections.abc import Iterator
 from pathlib import Path
@@ -10,7 +11,7 @@ import pytest
 
 sys.path.insert(0, str(Path(__file__).parent))
 
-from servers import Mosquitto, VictoriaMetrics  # noqa: E402
+from servers import Mosquitto, VictoriaMetrics
 
 
 @pytest.fixture
@@ -29,3 +30,14 @@ def victoria(tmp_path: Path) -> Iterator[VictoriaMetrics]:
     server.start()
     yield server
     server.kill()
+
+
+@pytest.fixture
+def cli() -> list[str]:
+    """The probeflow command as argv for a subprocess."""
+    return [sys.executable, "-m", "probeflow"]
+
+
+@pytest.fixture
+def cli_env() -> dict[str, str]:
+    return {**os.environ, "PYTHONUNBUFFERED": "1"}

@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import os
-import sys
 import textwrap
 from collections.abc import Callable
 from pathlib import Path
@@ -35,13 +33,3 @@ def config_file(tmp_path: Path) -> Callable[..., Path]:
         return path
 
     return write
-
-
-@pytest.fixture
-def cli() -> list[str]:
-    return [sys.executable, "-m", "probeflow"]
-
-
-@pytest.fixture
-def cli_env() -> dict[str, str]:
-    return {**os.environ, "PYTHONUNBUFFERED": "1"}
