@@ -49,6 +49,7 @@ from pydantic import ConfigDict, Field, field_validator
 
 from probeflow.collectors.base import CollectorConfigBase, CollectorContext
 from probeflow.collectors.mqtt_acks import AckEntry, AckLedger, GroupAckSender
+from probeflow.collectors.mqtt_publish import LeanMessage, lean_publishes
 from probeflow.collectors.mqtt_socket import buffer_reads
 from probeflow.collectors.parse import ParsedReadings, RecordParser
 from probeflow.collectors.ratelog import RateLimitedLog, default_logger
@@ -57,6 +58,9 @@ from probeflow.mqtt_common import MqttConnectionConfig, build_client, connect_pr
 __all__ = ["MqttCollector", "MqttCollectorConfig", "probe_levels"]
 
 WEEK_S = 7 * 24 * 3600
+
+Incoming = paho.MQTTMessage | LeanMessage
+"""An incoming PUBLISH: paho's message, or the lean one of collectors/mqtt_publish.py."""
 
 ACK_BARRIER_FILTER = "probeflow/ack-barrier/never-subscribed"
 """Unsubscribed (never subscribed) on stop, as a round trip behind the last acks."""
@@ -148,6 +152,7 @@ class MqttCollector:
         self._client.on_connect_fail = self._on_connect_fail
         self._client.on_disconnect = self._on_disconnect
         self._client.on_message = self._on_message
+        lean_publishes(self._client, self._on_message)   # collectors/mqtt_publish.py
         self._client.on_subscribe = self._on_subscribe
         self._client.on_unsubscribe = self._on_unsubscribe
         self._unsubacks: set[int] = set()
@@ -155,7 +160,7 @@ class MqttCollector:
         self._ack_sender = GroupAckSender(self._client)
         self._acks = AckLedger(self._client.ack, name=context.name, send_group=self._ack_sender)
 
-        self._inbox: list[tuple[int, paho.MQTTMessage]] = []
+        self._inbox: list[tuple[int, Incoming]] = []
         self._inbox_lock = threading.Lock()
         self._wake = threading.Event()
         self._stopping = threading.Event()
@@ -358,7 +363,7 @@ class MqttCollector:
         except Exception as exc:  # noqa: BLE001 - a raise would end paho's network thread
             self._callback_failed("on_subscribe", exc)
 
-    def _on_message(self, client: paho.Client, userdata: Any, message: paho.MQTTMessage) -> None:
+    def _on_message(self, client: paho.Client, userdata: Any, message: Incoming) -> None:
         try:
             if self._stopping.is_set():
                 return  # not acked: the broker redelivers it in the next session
@@ -453,7 +458,7 @@ class MqttCollector:
         cache[topic] = probe
         return probe
 
-    def _process(self, items: list[tuple[int, paho.MQTTMessage]]) -> None:
+    def _process(self, items: list[tuple[int, Incoming]]) -> None:
         ctx = self.context
         entries = self._hold(items)
         out = self._columns(items)
@@ -469,7 +474,7 @@ class MqttCollector:
         elif entries:
             self._acks.settle(entries)
 
-    def _hold(self, items: list[tuple[int, paho.MQTTMessage]]) -> list[AckEntry]:
+    def _hold(self, items: list[tuple[int, Incoming]]) -> list[AckEntry]:
         """Register the group's QoS 1 messages with the ledger, in arrival order:
         one entry per run of messages from the same connection."""
         entries: list[AckEntry] = []
@@ -492,7 +497,7 @@ class MqttCollector:
                 entries.append(entry)
         return entries
 
-    def _columns(self, items: list[tuple[int, paho.MQTTMessage]]) -> ParsedReadings | None:
+    def _columns(self, items: list[tuple[int, Incoming]]) -> ParsedReadings | None:
         """Fast path for a group of single-reading messages that are all valid:
         decode each payload, take the probe from the topic where the payload
         names none, and check the group a column at a time
@@ -523,7 +528,7 @@ class MqttCollector:
         out.probe, out.ts, out.mv, out.temp_c, out.ohms = cols
         return out
 
-    def _each(self, items: list[tuple[int, paho.MQTTMessage]]) -> ParsedReadings:
+    def _each(self, items: list[tuple[int, Incoming]]) -> ParsedReadings:
         """Every message checked on its own; each reject keeps its reason and topic."""
         out = ParsedReadings()
         rejects = out.rejects
