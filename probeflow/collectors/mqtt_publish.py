@@ -96,14 +96,20 @@ def lean_publishes(client: Any, deliver: Callable[[paho.Client, Any, LeanMessage
     network thread would end).  Returns False, and changes nothing, when this
     paho has no ``_handle_publish`` to hook or does not acknowledge manually."""
     original = getattr(client, "_handle_publish", None)
-    if not callable(original) or not getattr(client, "_manual_ack", False):
+    in_packet = getattr(client, "_in_packet", None)
+    if (not callable(original) or getattr(client, "_manual_ack", False) is not True
+            or not isinstance(in_packet, dict) or not {"command", "packet"} <= in_packet.keys()
+            or not hasattr(client, "_protocol") or not hasattr(client, "_userdata")):
         return False
     success = paho.MQTT_ERR_SUCCESS
     mqtt5 = paho.MQTTv5
 
     def handle_publish() -> Any:
-        in_packet = client._in_packet
-        message = decode_lean(in_packet["command"], in_packet["packet"], client._protocol == mqtt5)
+        try:
+            packet = client._in_packet
+            message = decode_lean(packet["command"], packet["packet"], client._protocol == mqtt5)
+        except (AttributeError, KeyError, TypeError, IndexError):
+            message = None   # a paho whose internals moved: its own handler decides
         if message is None:
             return original()
         deliver(client, client._userdata, message)

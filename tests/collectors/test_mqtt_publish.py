@@ -172,3 +172,19 @@ def test_lean_message_reads_like_paho_message() -> None:
     assert (msg.topic, msg.payload, msg.qos, msg.mid, msg.dup, msg.retain) == \
         ("hollin/ph-1/reading", b"{}", 1, 42, False, True)
     assert "mid=42" in repr(msg)
+
+
+def test_moved_internals_fall_back_to_paho_instead_of_ending_the_network_thread() -> None:
+    client = paho.Client(paho.CallbackAPIVersion.VERSION2, client_id="hollin-x", manual_ack=True,
+                         protocol=paho.MQTTv5)
+    called: list[str] = []
+    client._handle_publish = lambda: called.append("paho") or paho.MQTT_ERR_SUCCESS
+    delivered: list[LeanMessage] = []
+    assert lean_publishes(client, lambda c, u, m: delivered.append(m))
+    client._in_packet = {"command": header(1, False, False),
+                         "packet": publish_packet(b"hollin/ph-1/reading", b"{}", 1, 5, True)}
+    assert client._handle_publish() == paho.MQTT_ERR_SUCCESS
+    assert [m.mid for m in delivered] == [5] and called == []
+    client._in_packet = {"command": header(1, False, False)}     # a paho that keeps it elsewhere
+    client._handle_publish()
+    assert called == ["paho"] and len(delivered) == 1
