@@ -293,7 +293,9 @@ class _Forwarder:
                 self.log.exception("influx forwarder: unexpected error, retrying: %s", type(exc).__name__)
                 self._failed(f"{type(exc).__name__}: {exc}")
             finally:
-                self.busy = False
+                if self.busy:
+                    self.busy = False
+                    self.outbox.notify_waiters()   # a flush waiting on busy returns at once
 
     def _forward(self, rows: list[OutboxRow]) -> None:
         precision = rows[0].precision

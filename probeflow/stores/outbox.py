@@ -122,6 +122,12 @@ class Outbox:
         conn = sqlite3.connect(self.path, timeout=60.0, isolation_level=None, check_same_thread=False)
         conn.execute("PRAGMA journal_mode=WAL")
         conn.execute(f"PRAGMA synchronous={synchronous}")
+        # Some SQLite builds (Debian's among them) overwrite every freed page with
+        # zeros by default.  A sent chunk is ~100 overflow pages, so each delete
+        # wrote them all to the WAL again (7 ms a chunk, a third of a send);
+        # FAST zeroes only where it costs no extra write.  The outbox holds
+        # copies of readings already on their way to the server, nothing secret.
+        conn.execute("PRAGMA secure_delete=FAST")
         return conn
 
     # -- depth, for metrics -------------------------------------------------
@@ -277,20 +283,30 @@ class Outbox:
     def oldest(self, max_lines: int) -> list[OutboxRow]:
         """The oldest rows of one precision, up to ``max_lines`` lines (always at least one row)."""
         with self._drain_lock:
+            conn = self._drain_conn
             try:
-                cur = self._drain_conn.execute(
-                    "SELECT id, precision, n_lines, body FROM outbox ORDER BY id LIMIT ?",
-                    (max(1, max_lines),),
-                )
-                out: list[OutboxRow] = []
-                total = 0
-                for rid, prec, n, body in cur:
-                    if out and (prec != out[0].precision or total + n > max_lines):
-                        break
-                    out.append(OutboxRow(rid, prec, n, bytes(body)))
-                    total += n
-                cur.close()
-                return out
+                # The rows first, then only their bodies (a body is hundreds of
+                # kilobytes of overflow pages: reading one more than is sent costs).
+                # One read transaction, so both see the same rows.
+                conn.execute("BEGIN")
+                try:
+                    chosen: list[tuple[int, str, int]] = []
+                    total = 0
+                    for rid, prec, n in conn.execute(
+                        "SELECT id, precision, n_lines FROM outbox ORDER BY id LIMIT ?",
+                        (max(1, max_lines),),
+                    ):
+                        if chosen and (prec != chosen[0][1] or total + n > max_lines):
+                            break
+                        chosen.append((rid, prec, n))
+                        total += n
+                    bodies = dict(conn.execute(
+                        "SELECT id, body FROM outbox WHERE id BETWEEN ? AND ?",
+                        (chosen[0][0], chosen[-1][0]),
+                    ).fetchall()) if chosen else {}
+                finally:
+                    conn.execute("COMMIT")
+                return [OutboxRow(rid, prec, n, bytes(bodies[rid])) for rid, prec, n in chosen]
             except sqlite3.Error as exc:
                 raise StoreError(f"cannot read the outbox file {self.path}: {exc}") from exc
 
@@ -340,6 +356,11 @@ class Outbox:
             return list(self._drain_conn.execute(
                 "SELECT origin, line, reason FROM rejected ORDER BY id"
             ))
+
+    def notify_waiters(self) -> None:
+        """Wake :meth:`wait_for_change` now (the forwarder finished a send)."""
+        with self._state:
+            self._state.notify_all()
 
     def wait_for_change(self, timeout: float) -> None:
         """Block until rows are added or removed, or ``timeout`` seconds pass."""
