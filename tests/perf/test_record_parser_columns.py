@@ -83,7 +83,40 @@ def test_all_good_lines_take_the_fast_path_with_the_same_readings(recs: list[dic
     parser = RecordParser(PROBES, future_s=None)
     lines = [orjson.dumps(r) for r in recs]
     assert parser.columns([orjson.loads(x) for x in lines], None, parser.latest()) is not None
+    assert parser._typed_lines(ParsedReadings(), lines, parser.latest())   # the msgspec path takes them
     same(parser.lines(lines), reference_lines(parser, lines))
+
+
+NUMBER_TEXTS = ["0", "-0", "-0.0", "1.5e2", "1E-3", "-2.5E+3", "123456789012345678901234567890",
+                "18446744073709551616", "0.1", "1e-320", "7.000000000000001", "4.9e-324",
+                "1.7976931348623157e308"]
+
+
+@FUZZ
+@given(st.lists(st.tuples(st.sampled_from(NUMBER_TEXTS), st.sampled_from(NUMBER_TEXTS),
+                          st.sampled_from(["", " ", "\t", "\r"]),
+                          st.sampled_from(["", ',"note":"x"', ',"mv":3', ',"temp_c":null',
+                                           ',"probe":"tank-4"', ',"nested":{"a":[1,{"b":null}]}'])),
+                min_size=1, max_size=20))
+def test_number_spellings_and_extra_keys_read_like_orjson(parts: list[tuple[str, str, str, str]]) -> None:
+    """Both decoders must read every JSON number spelling to the same float, and
+    a repeated key (the last one counts, as in orjson) the same way."""
+    parser = RecordParser(PROBES, future_s=None)
+    lines = [f'{pad}{{"probe":"tank-3","ts":1764633600,"mv":{mv},"temp_c":{t}{extra}}}{pad}'.encode()
+             for mv, t, pad, extra in parts]
+    same(parser.lines(lines), reference_lines(parser, lines))
+
+
+def test_lines_that_only_decode_together_are_rejected_one_by_one() -> None:
+    """Two records on one line, or one record split over two, are malformed lines
+    (JSON Lines: one value per line), whatever a stream decoder would make of them."""
+    parser = RecordParser(PROBES, future_s=None)
+    rec = b'{"probe":"tank-3","ts":1764633600,"mv":1.5}'
+    for lines in ([rec + b" " + rec, b""], [b'{"probe":"tank-3",', b'"ts":1764633600,"mv":1.5}'],
+                  [rec + b"," + rec[:-1] + b',"x":"', b'"}']):
+        got = parser.lines(lines)
+        assert len(got.probe) == 0 and len(got.rejects) == sum(1 for x in lines if x.strip())
+        same(got, reference_lines(parser, lines))
 
 
 @FUZZ
