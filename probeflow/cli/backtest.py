@@ -29,6 +29,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--chatter-s", type=float, default=DEFAULT_CHATTER_S,
                         help="an activation within this many seconds of the previous clear is "
                         f"chattering (default {DEFAULT_CHATTER_S:g})")
+    parser.add_argument("--workers", type=int, default=None, metavar="N",
+                        help="threads evaluating rules side by side (default: up to 2; "
+                        "1 for plugin rules that share state between rule objects)")
     parser.add_argument("--json", action="store_true", help="print the result as JSON")
     parser.add_argument("--no-progress", action="store_true", help="no progress bar")
 
@@ -110,7 +113,10 @@ def run(args: argparse.Namespace) -> int:
         raise ProbeflowError("give --rules once (one set) or twice (A and B)")
     convert, probe_ids = _converter(args.config)
     recording = Path(args.recording)
-    tests = [Backtest(rs, probe_ids, args.chatter_s) for rs in rule_sets]
+    if args.workers is not None and args.workers < 1:
+        raise ProbeflowError(f"--workers must be 1 or more, not {args.workers}")
+    workers = {} if args.workers is None else {"workers": args.workers}
+    tests = [Backtest(rs, probe_ids, args.chatter_s, **workers) for rs in rule_sets]
     bar: Any = None
     if not args.no_progress:
         from tqdm import tqdm

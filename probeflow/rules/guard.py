@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable, Sequence
+from concurrent.futures import Executor
 from typing import Any
 
 from probeflow.rules.base import Rule
@@ -51,6 +52,20 @@ class RuleGuard:
         for rule in rules:
             try:
                 out.extend(rule.evaluate(batch))
+            except Exception as exc:  # noqa: BLE001 - plugin code must not stop the others
+                self._failed(rule, "evaluate", exc)
+        return out
+
+    def evaluate_in(self, pool: Executor, rules: Sequence[Rule], batch: Any) -> list[Transition]:
+        """As :meth:`evaluate`, with the rules run side by side on ``pool``'s threads
+        (numpy gives up the interpreter lock in its array loops).  The results are
+        joined in rule order and failures counted on the calling thread, so the
+        outcome equals :meth:`evaluate`'s.  Each rule must keep to its own state."""
+        futures = [pool.submit(rule.evaluate, batch) for rule in rules]
+        out: list[Transition] = []
+        for rule, future in zip(rules, futures, strict=True):
+            try:
+                out.extend(future.result())
             except Exception as exc:  # noqa: BLE001 - plugin code must not stop the others
                 self._failed(rule, "evaluate", exc)
         return out

@@ -186,3 +186,30 @@ def test_raw_readings_are_converted_with_the_site_config(tmp_path):
     no_config = subprocess.run([sys.executable, "-m", "probeflow", "backtest", str(path), "--rules",
                                 str(rules), "--no-progress"], capture_output=True, text=True, check=False)
     assert no_config.returncode == 1 and "--config" in no_config.stderr
+
+
+def test_rules_side_by_side_count_what_one_thread_counts():
+    """Threads change the speed, not the result: same stats, same errors of a failing rule."""
+    from probeflow.rules.backtest import RuleStats
+
+    class Broken:   # a plugin rule that always raises
+        kind, id = "broken", "always-fails"
+
+        def evaluate(self, batch):
+            raise RuntimeError("plugin bug")
+
+        def tick(self, now):
+            return []
+
+    rec = recording()
+    results = []
+    for workers in (1, 3):
+        bt = Backtest(parse_rules_config(RULES_A), ["p-1", "p-2", "p-3"], workers=workers)
+        bt.rules.insert(1, Broken())
+        bt.stats["always-fails"] = RuleStats("always-fails", "broken")
+        for chunk in chunks(rec, [len(rec) // 3, 2 * len(rec) // 3]):
+            bt.feed(chunk)
+        results.append({rid: s.as_dict() for rid, s in bt.finish().items()})
+    assert results[0] == results[1]
+    assert results[0]["always-fails"]["errors"] == 3
+    assert sum(s["activations"] for s in results[0].values()) > 10
