@@ -11,7 +11,12 @@ what the durable stores keep, so it never holds up the reading path:
   Readings are handed to paho only while fewer than ``readings_in_flight``
   messages wait for the broker's PUBACK, and paho's in-flight limit is set
   above that, so neither paho's own queue nor its in-flight window fills with
-  readings ahead of an alert.
+  readings ahead of an alert.  The window is small (32 messages) on purpose:
+  an alert still queues behind every message in flight on the connection,
+  and paho-mqtt 2.x walks its whole table of unconfirmed messages on every
+  PUBACK (``_update_inflight``), so a window of 500 cost about a million
+  Python steps a second at 2,000 messages/s and, once full, stayed full:
+  alerts then took 150-450 ms instead of 10-30 ms (bench/README.md).
 * **Readings are published in groups.**  Every pass takes all queued reading
   batches (up to ``readings_per_pass`` readings); with ``group_readings`` each
   probe's readings of the pass go out as one JSON array.
@@ -93,7 +98,7 @@ class MqttRepublishConfig(StoreConfigBase, MqttConnectionConfig):
     qos: Literal[0, 1] = 1
     group_readings: bool = False        # one JSON array per probe and batch instead of one message per reading
     queue_max_readings: int = Field(default=100_000, gt=0)
-    readings_in_flight: int = Field(default=500, gt=0, le=60_000)   # unconfirmed reading messages at most
+    readings_in_flight: int = Field(default=32, gt=0, le=60_000)   # unconfirmed reading messages at most
     readings_per_pass: int = Field(default=20_000, gt=0)
     client_queue_max: int = Field(default=20_000, gt=0)
     flush_timeout_s: float = Field(default=2.0, ge=0, le=60)

@@ -188,3 +188,22 @@ def test_moved_internals_fall_back_to_paho_instead_of_ending_the_network_thread(
     client._in_packet = {"command": header(1, False, False)}     # a paho that keeps it elsewhere
     client._handle_publish()
     assert called == ["paho"] and len(delivered) == 1
+
+
+@pytest.mark.services
+def test_client_sockets_do_not_hold_small_packets(mosquitto) -> None:
+    """Nagle's algorithm off (TCP_NODELAY, RFC 896) on the collector's connection,
+    so a PUBACK or an alert is not held back behind unacknowledged bytes."""
+    import socket
+
+    sink = Sink()
+    cfg = MqttCollector.Config(type="mqtt", url=mosquitto.url, topic="hollin/+/reading",
+                               client_id="hollin-nodelay", reconnect_min_s=0.2, reconnect_max_s=1.0)
+    collector = MqttCollector(cfg, sink.context("mqtt:hollin"))
+    collector.start()
+    try:
+        assert collector.subscribed.wait(10)
+        sock = collector._client.socket()
+        assert sock.getsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY) == 1
+    finally:
+        collector.stop()
