@@ -105,7 +105,7 @@ def _table(title: str, stats: dict[str, RuleStats]) -> list[str]:
 
 
 def run(args: argparse.Namespace) -> int:
-    from probeflow.rules.backtest import Backtest, compare
+    from probeflow.rules.backtest import DEFAULT_WORKERS, Backtest, compare
     from probeflow.rules.recording import iter_recording
 
     rule_sets = [load_rules_file(p) for p in args.rules]
@@ -115,8 +115,8 @@ def run(args: argparse.Namespace) -> int:
     recording = Path(args.recording)
     if args.workers is not None and args.workers < 1:
         raise ProbeflowError(f"--workers must be 1 or more, not {args.workers}")
-    workers = {} if args.workers is None else {"workers": args.workers}
-    tests = [Backtest(rs, probe_ids, args.chatter_s, **workers) for rs in rule_sets]
+    workers = DEFAULT_WORKERS if args.workers is None else args.workers
+    tests = [Backtest(rs, probe_ids, args.chatter_s, workers) for rs in rule_sets]
     bar: Any = None
     if not args.no_progress:
         from tqdm import tqdm

@@ -261,15 +261,11 @@ class RecordParser:
         probes = list(map(get, objs, repeat("probe", n), repeat(default_probe, n)))
         if set(map(type, probes)) != {str}:
             return None
-        known = self.known_probes
-        if known is not None and not known.issuperset(probes):
-            return None
         raw_ts = list(map(get, objs, repeat("ts", n)))
         ts = _number_column(raw_ts, optional=False)
         if ts is None:
             return None   # missing, RFC 3339 text or bad: the per-record path decides
-        ts_arr = np.asarray(ts, dtype=np.float64)
-        if ts_arr.min() < EARLIEST_TS or ts_arr.max() >= (self._latest() if latest is None else latest):
+        if not self._known_and_in_time(probes, ts, self._latest() if latest is None else latest):
             return None
         mv = _number_column(list(map(get, objs, repeat("mv", n))), optional=False)
         if mv is None:
@@ -294,6 +290,15 @@ class RecordParser:
         out.ohms.extend(cols[4])
         return True
 
+    def _known_and_in_time(self, probes: list[str], ts: list[float], latest: float) -> bool:
+        """Column checks shared by both fast paths: every probe accepted, every
+        time in [EARLIEST_TS, latest) (NaN fails too)."""
+        known = self.known_probes
+        if known is not None and not known.issuperset(probes):
+            return False
+        ts_arr = np.asarray(ts, dtype=np.float64)
+        return bool(ts_arr.min() >= EARLIEST_TS and ts_arr.max() < latest)
+
     def _typed_lines(self, out: ParsedReadings, lines: list[bytes], latest: float) -> bool:
         """The msgspec fast path of :meth:`lines` (see the module docstring):
         False, with ``out`` untouched, unless every line is a valid record."""
@@ -305,12 +310,8 @@ class RecordParser:
         probes = list(map(probe_of, objs))
         if None in probes:
             return False   # missing or null probe: a JSON source names it in each record
-        known = self.known_probes
-        if known is not None and not known.issuperset(probes):
-            return False
         ts = list(map(ts_of, objs))
-        ts_arr = np.array(ts, dtype=np.float64)
-        if not (ts_arr.min() >= EARLIEST_TS and ts_arr.max() < latest):   # NaN fails too
+        if not self._known_and_in_time(probes, ts, latest):
             return False
         mv = list(map(mv_of, objs))
         if not np.isfinite(np.array(mv, dtype=np.float64)).all():
