@@ -14,6 +14,7 @@ import socket
 import subprocess
 import time
 import urllib.request
+from collections.abc import Callable
 from pathlib import Path
 
 __all__ = ["Mosquitto", "VictoriaMetrics", "free_port", "wait_for_port"]
@@ -25,13 +26,17 @@ def free_port() -> int:
         return int(s.getsockname()[1])
 
 
-def wait_for_port(port: int, timeout: float = 15.0) -> None:
+def wait_for_port(port: int, timeout: float = 15.0, alive: Callable[[], bool] | None = None) -> None:
+    """Until something accepts connections on ``port``; with ``alive``, give up as soon as it
+    says the server process has exited (a port already in use, a bad data folder)."""
     deadline = time.monotonic() + timeout
     while time.monotonic() < deadline:
         try:
             with socket.create_connection(("127.0.0.1", port), timeout=0.5):
                 return
         except OSError:
+            if alive is not None and not alive():
+                raise TimeoutError(f"the server process exited before listening on 127.0.0.1:{port}") from None
             time.sleep(0.05)
     raise TimeoutError(f"nothing listens on 127.0.0.1:{port} after {timeout} s")
 
@@ -62,10 +67,23 @@ class _Server:
             self._argv(), stdout=self._log, stderr=subprocess.STDOUT, start_new_session=True
         )
         try:
-            wait_for_port(self.port)
-        except TimeoutError:
+            wait_for_port(self.port, alive=lambda: self.proc is not None and self.proc.poll() is None)
+        except TimeoutError as exc:
             self.kill()
-            raise RuntimeError(f"{self._argv()[0]} did not start; log:\n{self.log_path.read_text()[-2000:]}")
+            raise RuntimeError(f"{self._argv()[0]} did not start ({exc}); log:\n{self._log_tail()}") from None
+
+    def _log_tail(self, chars: int = 2000) -> str:
+        return self.log_path.read_text(errors="replace")[-chars:] if self.log_path.exists() else ""
+
+    def describe(self) -> str:
+        """Process state, port and log tail: for failure messages."""
+        if self.proc is None:
+            state = "not running (stopped or killed by the test)"
+        elif self.proc.poll() is None:
+            state = f"running, pid {self.proc.pid}"
+        else:
+            state = f"exited with {self.proc.returncode}"
+        return f"{state}, port {self.port}; log tail:\n{self._log_tail()}"
 
     def _end(self, sig: int) -> None:
         if self.proc is None:

@@ -30,6 +30,7 @@ import sys
 import threading
 import time
 import urllib.request
+from collections import deque
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -267,6 +268,9 @@ class AtLeastOncePublisher:
         self.republished = 0
         self.client.on_connect = self._on_connect
         self.client.on_disconnect = self._on_disconnect
+        # paho's own log, last lines only: printed when a reconnect never comes
+        self._paho_log: deque[str] = deque(maxlen=60)
+        self.client.on_log = self._on_log
 
     def _on_connect(self, client: Any, userdata: Any, flags: Any, reason_code: Any, props: Any) -> None:
         if not reason_code.is_failure:
@@ -274,6 +278,17 @@ class AtLeastOncePublisher:
 
     def _on_disconnect(self, client: Any, userdata: Any, flags: Any, reason_code: Any, props: Any) -> None:
         self.connected.clear()
+
+    def _on_log(self, client: Any, userdata: Any, level: int, text: str) -> None:
+        self._paho_log.append(f"{time.monotonic():.3f} {text[:200]}")
+
+    def diagnosis(self) -> str:
+        """What the publisher knows about its connection: for a failure message."""
+        thread = getattr(self.client, "_thread", None)
+        alive = thread is not None and thread.is_alive()
+        return (f"paho network thread alive: {alive}; connected: {self.client.is_connected()}; "
+                f"unacknowledged: {len(self._pending)}; paho log (newest last):\n  "
+                + "\n  ".join(self._paho_log))
 
     def start(self) -> None:
         props = Properties(PacketTypes.CONNECT)
@@ -313,7 +328,8 @@ class AtLeastOncePublisher:
         while self.unacknowledged:
             if time.monotonic() > deadline:
                 raise AssertionError(f"{self.unacknowledged} messages never acknowledged by the broker")
-            wait_until(self.connected.is_set, 30, "the publisher to reconnect")
+            if not self.connected.wait(30):
+                raise AssertionError("the publisher did not reconnect within 30 s; " + self.diagnosis())
             with self._lock:
                 items = list(self._pending.items())
             for key, (topic, payload, info) in items:
@@ -424,16 +440,25 @@ class Schedule:
         self._thread.start()
 
     def _run(self) -> None:
+        # An action that fails does not stop the schedule: the later ones bring
+        # servers back, and a scenario left with a server down only hides the
+        # first error behind a timeout.
         for at, action in self.actions:
             delay = self._t0 + at - time.monotonic()
             if delay > 0:
                 time.sleep(delay)
+            name = getattr(action, "__name__", "action")
             try:
                 action()
-                self.log.append((time.monotonic() - self._t0, getattr(action, "__name__", "action")))
-            except BaseException as exc:  # noqa: BLE001 - reported by join()
+                self.log.append((time.monotonic() - self._t0, name))
+            except BaseException as exc:  # noqa: BLE001 - reported by join() and check()
+                self.log.append((time.monotonic() - self._t0, f"{name} failed: {exc!r}"))
                 self.errors.append(exc)
-                return
+
+    def check(self) -> None:
+        """Raise the first error of an action run so far (the schedule may still be running)."""
+        if self.errors:
+            raise AssertionError(f"a fault action failed; schedule log: {self.log}") from self.errors[0]
 
     def join(self, timeout: float = 120.0) -> None:
         self._thread.join(timeout)
@@ -454,10 +479,17 @@ def paced(indices: Sequence[int], rate_per_s: float) -> Iterable[int]:
 
 
 def publish_stream(publisher: AtLeastOncePublisher, stream: Stream, rate_per_s: float,
-                   prefix: str = "kestrel") -> None:
-    for i in paced(range(stream.n), rate_per_s):
-        publisher.publish(i, stream.topic(i, prefix), stream.payload(i))
-    publisher.settle()
+                   prefix: str = "kestrel", faults: Schedule | None = None) -> None:
+    """Publish ``stream`` at ``rate_per_s`` and settle it.  With ``faults``, a failed fault
+    action is reported as the cause rather than the timeout it leads to."""
+    try:
+        for i in paced(range(stream.n), rate_per_s):
+            publisher.publish(i, stream.topic(i, prefix), stream.payload(i))
+        publisher.settle()
+    except AssertionError:
+        if faults is not None:
+            faults.check()
+        raise
 
 
 def assert_every_reading_once(db: Path, victoria: Any, stream: Stream, n: int) -> None:

@@ -71,13 +71,18 @@ def test_broker_killed_three_times_loses_and_duplicates_nothing(tmp_path, broker
 
     def crash_broker() -> None:
         broker.kill()
-        crashes.append(sqlite_counts(db)[1])   # stored so far: the crash hit mid-stream
-        time.sleep(0.5)
-        broker.start()
+        try:
+            crashes.append(sqlite_counts(db)[1])   # stored so far: the crash hit mid-stream
+        finally:
+            time.sleep(0.5)
+            broker.start()
 
     faults = Schedule([(at, crash_broker) for at in KILLS_AT_S])
     faults.start()
-    publish_stream(publisher, stream, RATE)
+    try:
+        publish_stream(publisher, stream, RATE, faults=faults)
+    except AssertionError as exc:
+        raise AssertionError(f"{exc}\nbroker: {broker.describe()}\nschedule: {faults.log}") from exc
     faults.join()
     publisher.stop()
 

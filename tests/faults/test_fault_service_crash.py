@@ -61,7 +61,7 @@ def test_service_killed_three_times_loses_and_duplicates_nothing(tmp_path, mosqu
 
     faults = Schedule([(at, crash_service) for at in KILLS_AT_S])
     faults.start()
-    publish_stream(publisher, stream, RATE)
+    publish_stream(publisher, stream, RATE, faults=faults)
     faults.join()
     publisher.stop()
 

@@ -79,7 +79,7 @@ def test_tsdb_down_30_s_loses_and_duplicates_nothing(tmp_path, mosquitto, victor
     faults = Schedule([(OUTAGE_START_S, tsdb_down), (OUTAGE_START_S + OUTAGE_S - 2.0, outbox_fills),
                        (OUTAGE_START_S + OUTAGE_S, tsdb_back)])
     faults.start()
-    publish_stream(publisher, stream, RATE)
+    publish_stream(publisher, stream, RATE, faults=faults)
     faults.join()
     publisher.stop()
 
