@@ -91,7 +91,7 @@ def same_value(a: float, b: float) -> bool:
     return bool(np.isnan(a) and np.isnan(b)) or a == b
 
 
-def wait_until(predicate: Callable[[], bool], timeout: float = 10.0) -> bool:
+def wait_until(predicate: Callable[[], bool], timeout: float = 30.0) -> bool:
     deadline = time.monotonic() + timeout
     while time.monotonic() < deadline:
         if predicate():

@@ -34,7 +34,7 @@ def wait_for_autosave(broker) -> None:
     """Wait until mosquitto has saved its state after this moment (autosave_interval 1)."""
     db = broker.dir / "data" / "mosquitto.db"
     since = time.time()
-    assert wait_until(lambda: db.exists() and db.stat().st_mtime > since + 0.01, timeout=5)
+    assert wait_until(lambda: db.exists() and db.stat().st_mtime > since + 0.01, timeout=30)
 
 
 def make(broker, sink: Sink, *, client_id: str = "larkmoor-logger", protocol: str = "5",

@@ -54,7 +54,7 @@ def test_every_message_settled_once_in_order(messages: list[tuple[str, bytes]]) 
         half = len(items) // 2
         collector._process(items[:half])
         collector._process(items[half:])
-        assert wait_until(lambda: len(sent) == len(messages), timeout=5)
+        assert wait_until(lambda: len(sent) == len(messages), timeout=30)
     finally:
         ledger.stop()
     assert sent == list(range(1, len(messages) + 1))

@@ -47,7 +47,7 @@ def broker_down_with_listener(mosquitto, **cfg: object) -> tuple[MqttRepublishSt
     assert wait_until(lambda: store.counters.connected)
     db = mosquitto.dir / "data" / "mosquitto.db"
     since = time.time()
-    assert wait_until(lambda: db.exists() and db.stat().st_mtime > since, timeout=5)  # listener's session saved
+    assert wait_until(lambda: db.exists() and db.stat().st_mtime > since, timeout=30)  # listener's session saved
     mosquitto.kill()
     assert wait_until(lambda: not store.counters.connected)
     return store, listener

@@ -99,7 +99,7 @@ def test_broker_outage_then_delivery_and_full_queue_counted(mosquitto) -> None:
         assert wait_until(lambda: store.counters.connected)
         db = mosquitto.dir / "data" / "mosquitto.db"
         since = time.time()
-        assert wait_until(lambda: db.exists() and db.stat().st_mtime > since, timeout=5)
+        assert wait_until(lambda: db.exists() and db.stat().st_mtime > since, timeout=30)
         mosquitto.kill()
         assert wait_until(lambda: not store.counters.connected)
         store.write(processed(["tank-3", "tank-4"]), [])      # queued (the client holds 1, waits)

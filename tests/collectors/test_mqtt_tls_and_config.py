@@ -179,7 +179,7 @@ def test_tls_host_name_is_checked(tls_broker: Mosquitto, pki: Path) -> None:
         sink.context("mqtt:tls"))
     collector.start()
     try:
-        assert wait_until(lambda: "certificate" in collector.context.counters.last_error, timeout=5)
+        assert wait_until(lambda: "certificate" in collector.context.counters.last_error, timeout=30)
         assert not collector.subscribed.wait(0.5)
     finally:
         collector.stop(timeout=2)

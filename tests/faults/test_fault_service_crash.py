@@ -54,8 +54,9 @@ def test_service_killed_three_times_loses_and_duplicates_nothing(tmp_path, mosqu
     stored_at_crash: list[int] = []
 
     def crash_service() -> None:
+        stored = sqlite_counts(db)[1]   # just before the kill: nothing delays the restart
         service.kill()
-        stored_at_crash.append(sqlite_counts(db)[1])
+        stored_at_crash.append(stored)
         time.sleep(0.3)
         service.start()
 

@@ -107,7 +107,7 @@ def test_status_refreshes_in_place_on_a_terminal(known_store: KnownStore) -> Non
                     seen += os.read(master, 65536)
                 except OSError:   # EIO: the view closed its side
                     break
-        assert proc.wait(timeout=5) == 0
+        assert proc.wait(timeout=30) == 0
     finally:
         if proc.poll() is None:
             proc.kill()
