@@ -89,7 +89,11 @@ def test_status_refreshes_in_place_on_a_terminal(known_store: KnownStore) -> Non
     env = dict(os.environ, PYTHONPATH=str(REPO))
     proc = subprocess.Popen([sys.executable, "-m", "probeflow", "status", "--config",
                              str(known_store.config), "--every", "0.2"],
-                            stdin=slave, stdout=slave, stderr=slave, cwd=REPO, env=env)
+                            stdin=slave, stdout=slave, stderr=slave, cwd=REPO, env=env,
+                            # A test run started in the background by a shell without job
+                            # control ignores SIGINT, and a child inherits that: give the
+                            # view the terminal's default, as a user's shell does.
+                            preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
     os.close(slave)
     seen = b""
     deadline = time.monotonic() + 60
