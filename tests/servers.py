@@ -59,18 +59,27 @@ class _Server:
     def _argv(self) -> list[str]:
         raise NotImplementedError
 
-    def start(self) -> None:
+    def start(self, attempts: int = 3) -> None:
+        """Start the server and wait until it listens.  A process that exits before
+        listening (for instance on a port not yet free right after a kill) is started again,
+        up to ``attempts`` times; one that hangs is not."""
         if self.proc is not None and self.proc.poll() is None:
             return
-        self._log = open(self.log_path, "ab")
-        self.proc = subprocess.Popen(
-            self._argv(), stdout=self._log, stderr=subprocess.STDOUT, start_new_session=True
-        )
-        try:
-            wait_for_port(self.port, alive=lambda: self.proc is not None and self.proc.poll() is None)
-        except TimeoutError as exc:
-            self.kill()
-            raise RuntimeError(f"{self._argv()[0]} did not start ({exc}); log:\n{self._log_tail()}") from None
+        for attempt in range(1, attempts + 1):
+            self._log = open(self.log_path, "ab")
+            self.proc = subprocess.Popen(
+                self._argv(), stdout=self._log, stderr=subprocess.STDOUT, start_new_session=True
+            )
+            try:
+                wait_for_port(self.port, alive=lambda: self.proc is not None and self.proc.poll() is None)
+                return
+            except TimeoutError as exc:
+                exited = self.proc.poll() is not None
+                self.kill()
+                if not exited or attempt == attempts:
+                    raise RuntimeError(f"{self._argv()[0]} did not start ({exc}, attempt {attempt}); "
+                                       f"log:\n{self._log_tail()}") from None
+                time.sleep(0.5)
 
     def _log_tail(self, chars: int = 2000) -> str:
         return self.log_path.read_text(errors="replace")[-chars:] if self.log_path.exists() else ""

@@ -54,3 +54,23 @@ def test_victoria_accepts_v2_line_protocol_and_exports_it(victoria):
     assert series[0]["metric"]["probe"] == "t-1"
     assert series[0]["values"] == [7.25]
     assert series[0]["timestamps"] == [1764633600250]
+
+
+def test_a_server_that_cannot_listen_fails_at_once_with_its_log(tmp_path):
+    """mosquitto exits when its port is taken: start() tries again, then fails with the log,
+    without waiting out the 15 s listening timeout (a fault scenario must not hide it)."""
+    import socket
+    import time
+
+    import pytest
+    from servers import Mosquitto
+
+    with socket.socket() as taken:
+        taken.bind(("127.0.0.1", 0))   # bound, not listening: connects are refused, mosquitto's bind fails
+        broker = Mosquitto(tmp_path / "broker", port=taken.getsockname()[1])
+        t0 = time.monotonic()
+        with pytest.raises(RuntimeError, match=r"did not start .*exited.*attempt 3") as info:
+            broker.start()
+        assert time.monotonic() - t0 < 12, "start() waited for the port instead of noticing the exit"
+        assert str(info.value).count("Address already in use") == 3   # each attempt's log line
+        assert broker.proc is None
