@@ -120,7 +120,11 @@ class Service:
         self.retry_collectors = retry_collectors
         self._failed_starts: dict[str, tuple[tuple[str, Any, CollectorContext], int, float]] = {}
         self.stats = ServiceStats()
-        self._stop = threading.Event()
+        # A plain flag, not a threading.Event: request_stop runs in signal handlers,
+        # and Event.set takes the lock that Event.wait holds on the main thread, so a
+        # signal landing inside the main loop's wait deadlocked the stop (seen once
+        # in CI as a service that ignored SIGTERM).  Only the main thread polls it.
+        self._stop_requested = False
         self._input: queue.Queue[Any] = queue.Queue(maxsize=self.settings.queue_batches)
         self._quarantine: collections.deque[QuarantineItem] = collections.deque()
         self._quarantine_lock = threading.Lock()
@@ -180,12 +184,20 @@ class Service:
 
     # -- control ----------------------------------------------------------------------
     def request_stop(self) -> None:
-        """Ask the service to stop (safe from a signal handler)."""
-        self._stop.set()
+        """Ask the service to stop.  Safe from a signal handler and from any thread:
+        it only sets a flag (no lock), which the main loop sees within 0.1 s."""
+        self._stop_requested = True
 
     @property
     def stopping(self) -> bool:
-        return self._stop.is_set()
+        return self._stop_requested
+
+    def _stop_after(self, seconds: float) -> bool:
+        """Sleep ``seconds`` unless a stop is requested; True once one is.
+        (time.sleep, not a lock-based wait: see ``_stop_requested``.)"""
+        if not self._stop_requested:
+            time.sleep(seconds)
+        return self._stop_requested
 
     def now(self) -> float:
         """Service time [epoch s] for rules' ticks and operator commands (see ``tick_clock``);
@@ -267,7 +279,7 @@ class Service:
         if not self._started:
             self.start()
         end = time.monotonic() + duration_s if duration_s is not None else float("inf")
-        while not self._stop.wait(0.1):
+        while not self._stop_after(0.1):
             if time.monotonic() >= end:
                 break
             self._retry_collectors()
@@ -290,7 +302,7 @@ class Service:
         idle_checks = 0
         best = None
         last_progress = time.monotonic()
-        while idle_checks < 2 and not self._stop.wait(0.05):
+        while idle_checks < 2 and not self._stop_after(0.05):
             if not self._thread.is_alive():
                 return
             backlog = self._input.qsize() + sum(int(w.backlog) for w in self.workers)
