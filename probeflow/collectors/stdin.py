@@ -16,6 +16,7 @@ from typing import Any, BinaryIO, Literal
 
 from probeflow.collectors.base import CollectorConfigBase, CollectorContext
 from probeflow.collectors.parse import DEFAULT_MAX_RECORD_BYTES, RecordParser
+from probeflow.pipes import widen_pipe
 
 __all__ = ["StdinCollector", "StdinCollectorConfig", "read_json_lines"]
 
@@ -31,6 +32,7 @@ def read_json_lines(stream: BinaryIO | int, parser: RecordParser, context: Colle
                     stop: threading.Event) -> None:
     """Parse JSON lines from a file descriptor or binary stream until EOF or ``stop``."""
     fd = stream if isinstance(stream, int) else stream.fileno()
+    widen_pipe(fd)   # speed only; see probeflow/pipes.py
     tail = b""
     while True:
         stopping = stop.is_set()

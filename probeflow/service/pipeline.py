@@ -44,6 +44,10 @@ from probeflow.stores.base import StoreContext
 __all__ = ["Service", "ServiceStats", "build_rule_engine_for", "build_service"]
 
 _END = object()
+_MAIN_POLL_S = 0.02
+"""How often the main thread looks for a stop request and for finished sources [s]
+(a finite source's run ends within this of its last reading being stored)."""
+_BACKLOG_POLL_S = 0.01
 _QUARANTINE_BACKLOG = 100_000
 
 
@@ -185,7 +189,7 @@ class Service:
     # -- control ----------------------------------------------------------------------
     def request_stop(self) -> None:
         """Ask the service to stop.  Safe from a signal handler and from any thread:
-        it only sets a flag (no lock), which the main loop sees within 0.1 s."""
+        it only sets a flag (no lock), which the main loop sees within ``_MAIN_POLL_S``."""
         self._stop_requested = True
 
     @property
@@ -279,7 +283,7 @@ class Service:
         if not self._started:
             self.start()
         end = time.monotonic() + duration_s if duration_s is not None else float("inf")
-        while not self._stop_after(0.1):
+        while not self._stop_after(_MAIN_POLL_S):
             if time.monotonic() >= end:
                 break
             self._retry_collectors()
@@ -302,7 +306,7 @@ class Service:
         idle_checks = 0
         best = None
         last_progress = time.monotonic()
-        while idle_checks < 2 and not self._stop_after(0.05):
+        while idle_checks < 2 and not self._stop_after(_BACKLOG_POLL_S):
             if not self._thread.is_alive():
                 return
             backlog = self._input.qsize() + sum(int(w.backlog) for w in self.workers)

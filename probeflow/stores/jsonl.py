@@ -12,6 +12,7 @@ records encoded by orjson.
 
 from __future__ import annotations
 
+import io
 import os
 import sys
 import threading
@@ -25,6 +26,7 @@ import orjson
 from probeflow.batch import QUALITY_NAMES, ProcessedBatch, QuarantineItem
 from probeflow.errors import StoreError
 from probeflow.events import AlertEvent, rfc3339
+from probeflow.pipes import widen_pipe
 from probeflow.stores.base import StoreConfigBase, StoreContext
 
 __all__ = ["JsonLinesStore", "StdoutStore", "encode_alerts", "encode_quarantine", "encode_readings",
@@ -334,6 +336,10 @@ class StdoutStore(_StreamStore):
                  context: StoreContext | None = None) -> None:
         super().__init__()
         self._stdout = sys.stdout.buffer
+        try:
+            widen_pipe(self._stdout.fileno())   # speed only; see probeflow/pipes.py
+        except (OSError, ValueError, io.UnsupportedOperation):
+            pass   # no file descriptor behind stdout (an embedding program's stream)
         self._qfile: IO[bytes] | None = None
         if config is not None and config.quarantine_path:
             base = Path(context.base_dir if context is not None else ".")
