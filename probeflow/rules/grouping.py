@@ -13,11 +13,10 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
-import pandas as pd
 
 from probeflow.batch import ProcessedBatch
 
-__all__ = ["GroupedBatch", "QuantityView", "compress_view", "group_batch"]
+__all__ = ["GroupedBatch", "QuantityView", "compress_view", "factorize_sorted", "group_batch"]
 
 
 @dataclass(slots=True)
@@ -130,13 +129,34 @@ def compress_view(
     )
 
 
+def factorize_sorted(probe: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Codes of each probe id in the sorted list of the distinct ids, and that list:
+    what ``pandas.factorize(probe, sort=True)`` gives for string ids (tested),
+    without importing pandas (0.2 s at the start of every command that runs
+    rules).  C-level dict work per batch: faster than pandas up to a few thousand
+    rows (the live path's batches), about 1.5x slower at 100,000 (0.5 ms more)."""
+    ids = probe.tolist()
+    distinct = list(dict.fromkeys(ids)) if all(type(p) is str for p in ids[:1]) else None
+    if distinct is None or not all(type(p) is str for p in distinct):
+        import pandas as pd   # None or other types (never from the collectors): pandas decides
+
+        codes, uniques = pd.factorize(probe, sort=True)
+        return np.asarray(codes, dtype=np.intp), np.asarray(uniques, dtype=object)
+    distinct.sort()
+    position = {p: i for i, p in enumerate(distinct)}
+    codes = np.fromiter(map(position.__getitem__, ids), dtype=np.intp, count=len(ids))
+    uniques = np.empty(len(distinct), dtype=object)
+    uniques[:] = distinct
+    return codes, uniques
+
+
 def group_batch(batch: ProcessedBatch, last_seen: Mapping[str, float] | None = None) -> GroupedBatch:
     """Sort a batch by (probe, ts), dropping repeats and readings older than ``last_seen``."""
     n = len(batch)
     if n == 0:
         return GroupedBatch([], np.empty(0, np.int64), np.empty(0), np.empty(0, np.uint8),
                             None, np.empty(0, np.int64))
-    codes, uniques = pd.factorize(batch.probe, sort=True)
+    codes, uniques = factorize_sorted(batch.probe)
     ts = np.asarray(batch.ts, dtype=np.float64)
     small = codes.astype(np.uint16) if uniques.shape[0] < 65536 else codes
     order = np.argsort(small, kind="stable")

@@ -30,7 +30,7 @@ from probeflow.pipes import widen_pipe
 from probeflow.stores.base import StoreConfigBase, StoreContext
 
 __all__ = ["JsonLinesStore", "StdoutStore", "encode_alerts", "encode_quarantine", "encode_readings",
-           "reading_records", "rfc3339_column", "rfc3339_stamps"]
+           "encoded_readings", "reading_records", "rfc3339_column", "rfc3339_stamps"]
 
 
 _DATETIME64_US_LIMIT_S = 9.2e12
@@ -125,11 +125,48 @@ def rfc3339_stamps(ts: np.ndarray) -> list[bytes]:
     return matrix.view(f"S{_STAMP_BYTES}").ravel().tolist()  # type: ignore[no-any-return]
 
 
-def _binary_column(data: np.ndarray, offsets: np.ndarray) -> Any:
+def _binary_column(data: np.ndarray | bytes, offsets: np.ndarray) -> Any:
+    """An Arrow large-binary column over ``data`` cut at ``offsets`` (int64, n + 1).
+
+    Every Arrow object of the encoder is made from buffers like this (and its
+    scalars by indexing such a column): ``pa.array`` and ``pa.scalar`` make
+    pyarrow import pandas, 0.2 s at the start of every ``filter``."""
     import pyarrow as pa
 
     return pa.Array.from_buffers(pa.large_binary(), offsets.shape[0] - 1,
                                  [None, pa.py_buffer(offsets), pa.py_buffer(data)])
+
+
+def _texts_column(texts: Sequence[bytes]) -> Any:
+    offsets = np.zeros(len(texts) + 1, dtype=np.int64)
+    np.cumsum(np.fromiter(map(len, texts), dtype=np.int64, count=len(texts)), out=offsets[1:])
+    return _binary_column(b"".join(texts), offsets)
+
+
+def _index_column(codes: np.ndarray) -> Any:
+    import pyarrow as pa
+
+    codes = np.ascontiguousarray(codes, dtype=np.int64)
+    return pa.Array.from_buffers(pa.int64(), codes.shape[0], [None, pa.py_buffer(codes)])
+
+
+_PROBE_JSON: dict[str, bytes] = {}
+_PROBE_JSON_MAX = 65_536
+
+
+def _probe_json_texts(ids: list[str]) -> list[bytes]:
+    """Each probe id as JSON text, remembered across batches (a site has a fixed
+    set of probes; the memory is dropped whole if it ever holds 65,536 ids).
+    Raises orjson.JSONEncodeError for an id orjson cannot encode."""
+    known = _PROBE_JSON
+    texts = list(map(known.get, ids))
+    if None in texts:
+        if len(known) > _PROBE_JSON_MAX:
+            known.clear()
+        for i, text in enumerate(texts):
+            if text is None:
+                texts[i] = known[ids[i]] = orjson.dumps(ids[i])
+    return texts  # type: ignore[return-value]
 
 
 def _number_texts(values: np.ndarray) -> Any:
@@ -145,41 +182,62 @@ def _number_texts(values: np.ndarray) -> Any:
     return _binary_column(data, offsets)
 
 
-def _encode_readings_arrow(batch: ProcessedBatch) -> bytes | None:
+_PIECE_SCALARS: tuple[Any, ...] = ()
+
+
+def _piece_scalars() -> tuple[Any, ...]:
+    """The literal pieces (and the empty separator) as Arrow scalars, made once
+    (two threads may both make them; each gets a complete tuple)."""
+    global _PIECE_SCALARS
+    if not _PIECE_SCALARS:
+        column = _texts_column([*_READING_PIECES, b""])
+        _PIECE_SCALARS = tuple(column[i] for i in range(len(column)))
+    return _PIECE_SCALARS
+
+
+def _encode_readings_arrow(batch: ProcessedBatch) -> memoryview | None:
     """The columnar encoder behind :func:`encode_readings` (None: use the
     straightforward one).  Every column becomes an Arrow binary column, and
     ``binary_join_element_wise`` lays the lines out end to end in one buffer."""
-    import pyarrow as pa
     import pyarrow.compute as pc
 
     n = len(batch)
     stamps = _stamp_matrix(batch.ts)
     if stamps is None:
         return None
+    ids = batch.probe.tolist()
     try:
-        probes = pa.array(batch.probe, type=pa.string()).dictionary_encode()
-    except (pa.ArrowInvalid, pa.ArrowTypeError):
-        return None
-    probe_json = pa.array([orjson.dumps(p) for p in probes.dictionary.to_pylist()],
-                          type=pa.large_binary()).take(probes.indices)
+        distinct = list(dict.fromkeys(ids))
+    except TypeError:
+        return None   # an unhashable id
+    if not all(type(p) is str for p in distinct):
+        return None   # None, numbers (7 and 7.0 would share a key here): the straightforward path
+    try:
+        probe_texts = _probe_json_texts(distinct)
+    except orjson.JSONEncodeError:
+        return None   # e.g. a lone surrogate: the straightforward path raises it
+    position = {p: i for i, p in enumerate(distinct)}
+    codes = np.fromiter(map(position.__getitem__, ids), dtype=np.int64, count=n)
     columns = [
-        probe_json,
+        _texts_column(probe_texts).take(_index_column(codes)),
         _binary_column(stamps.ravel(), np.arange(n + 1, dtype=np.int64) * _STAMP_BYTES),
         _number_texts(batch.mv),
         _number_texts(batch.temp_c),
         _number_texts(batch.ph),
         _number_texts(batch.neutral_ph),
         _number_texts(batch.neutral_dev),
-        pa.array(_QUALITY_JSON, type=pa.large_binary()).take(pa.array(batch.quality)),
+        _texts_column(_QUALITY_JSON).take(_index_column(batch.quality)),
     ]
+    pieces = _piece_scalars()
     args: list[Any] = []
-    for literal, column in zip(_READING_PIECES, columns):
-        args += [pa.scalar(literal, pa.large_binary()), column]
-    args += [pa.scalar(_READING_PIECES[-1], pa.large_binary()), pa.scalar(b"", pa.large_binary())]
+    for literal, column in zip(pieces, columns):
+        args += [literal, column]
+    args += [pieces[len(columns)], pieces[len(columns) + 1]]   # closing piece, empty separator
     lines = pc.binary_join_element_wise(*args)
     _validity, offsets_buffer, data_buffer = lines.buffers()
     offsets = np.frombuffer(offsets_buffer, dtype=np.int64, count=n + 1 + lines.offset)[lines.offset:]
-    return data_buffer.to_pybytes()[int(offsets[0]):int(offsets[-1])]
+    # a view of Arrow's buffer (it keeps the buffer alive): a batch's few MB are not copied
+    return memoryview(data_buffer).toreadonly()[int(offsets[0]):int(offsets[-1])]
 
 
 def encode_readings(batch: ProcessedBatch) -> bytes:
@@ -192,6 +250,12 @@ def encode_readings(batch: ProcessedBatch) -> bytes:
     each record of :func:`reading_records` (tested), which is used directly
     for the rare batch the columnar path does not take (non-finite times).
     """
+    return bytes(encoded_readings(batch))
+
+
+def encoded_readings(batch: ProcessedBatch) -> bytes | memoryview:
+    """:func:`encode_readings` without the final copy: the columnar path returns
+    a read-only view of the encoder's buffer, which a stream can write as it is."""
     if not len(batch):
         return b""
     fast = _encode_readings_arrow(batch)
@@ -236,17 +300,21 @@ class _StreamStore:
     def _quarantine_out(self) -> IO[bytes] | None:
         raise NotImplementedError  # pragma: no cover
 
-    def _put(self, stream: IO[bytes] | None, data: bytes) -> None:
-        if stream is None or not data:
+    def _put(self, stream: IO[bytes] | None, *pieces: bytes | memoryview) -> None:
+        """Write ``pieces`` one after the other, under the lock (nothing of another
+        write comes between them)."""
+        if stream is None or not any(pieces):
             return
         with self._lock:
             try:
-                stream.write(data)
+                for data in pieces:
+                    if data:
+                        stream.write(data)
             except (OSError, ValueError) as exc:
                 raise StoreError(f"writing JSON lines failed: {exc}") from exc
 
     def write(self, batch: ProcessedBatch, alerts: Sequence[AlertEvent]) -> None:
-        self._put(self._out(), encode_readings(batch) + encode_alerts(alerts))
+        self._put(self._out(), encoded_readings(batch), encode_alerts(alerts))
 
     def write_quarantine(self, items: Sequence[QuarantineItem]) -> None:
         self._put(self._quarantine_out(), encode_quarantine(items))

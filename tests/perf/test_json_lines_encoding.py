@@ -83,3 +83,48 @@ def test_stamps_equal_stdlib_datetime() -> None:
     # and a fixed, hand-checked value (2025-12-02 00:00:00.0005 UTC, from memory of the epoch)
     assert rfc3339_stamps(np.array([1764633600.0005])) == [b"2025-12-02T00:00:00.000500Z"]
     assert datetime(2025, 12, 2, tzinfo=UTC).timestamp() == 1764633600.0
+
+
+@pytest.mark.parametrize("n", [1, 5000])
+def test_the_uncopied_view_holds_the_same_bytes(n: int) -> None:
+    from probeflow.stores.jsonl import encoded_readings
+
+    batch = processed_batch(n, 11)
+    view = encoded_readings(batch)
+    assert isinstance(view, memoryview) and view.readonly
+    assert bytes(view) == straightforward(batch)
+
+
+def test_the_file_store_writes_exactly_the_straightforward_lines(tmp_path) -> None:
+    from probeflow.stores.jsonl import JsonLinesStore, JsonLinesStoreConfig
+
+    batches = [processed_batch(n, seed) for seed, n in enumerate((1, 5000, 17, 3000))]
+    store = JsonLinesStore(JsonLinesStoreConfig(path=str(tmp_path / "out.jsonl")))
+    for batch in batches:
+        store.write(batch, [])
+    store.close()
+    assert (tmp_path / "out.jsonl").read_bytes() == b"".join(map(straightforward, batches))
+
+
+def test_odd_probe_ids_give_what_orjson_gives_for_each_record() -> None:
+    batch = processed_batch(40, 12)
+    batch.probe[:4] = [None, 7, "tank-3", None]   # never from the collectors; the encoder must not care
+    assert encode_readings(batch) == straightforward(batch)
+    batch.probe[:3] = [7, 7.0, True]              # equal as dict keys, not as JSON
+    assert encode_readings(batch) == straightforward(batch)
+
+
+def test_an_id_orjson_cannot_encode_fails_as_the_straightforward_path_does() -> None:
+    batch = processed_batch(10, 13)
+    batch.probe[3] = "bad-\udc80"   # a lone surrogate
+    with pytest.raises(orjson.JSONEncodeError):
+        straightforward(batch)
+    with pytest.raises(orjson.JSONEncodeError):
+        encode_readings(batch)
+
+
+def test_many_batches_with_changing_probe_sets_reuse_no_stale_text() -> None:
+    for seed in range(20):
+        names = [f"weir-{seed}-{i}" for i in range(seed + 1)] + ["tank-3"]
+        batch = processed_batch(300, seed, probes=names)
+        assert encode_readings(batch) == straightforward(batch)
