@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -136,7 +137,10 @@ def factorize_sorted(probe: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     rules).  C-level dict work per batch: faster than pandas up to a few thousand
     rows (the live path's batches), about 1.5x slower at 100,000 (0.5 ms more)."""
     ids = probe.tolist()
-    distinct = list(dict.fromkeys(ids)) if all(type(p) is str for p in ids[:1]) else None
+    try:
+        distinct: list[Any] | None = list(dict.fromkeys(ids))
+    except TypeError:
+        distinct = None
     if distinct is None or not all(type(p) is str for p in distinct):
         import pandas as pd   # None or other types (never from the collectors): pandas decides
 

@@ -248,7 +248,8 @@ def encode_readings(batch: ProcessedBatch) -> bytes:
     once per distinct id; timestamps come from :func:`_stamp_matrix`; Arrow
     joins the pieces row by row in C.  The result equals ``orjson.dumps`` of
     each record of :func:`reading_records` (tested), which is used directly
-    for the rare batch the columnar path does not take (non-finite times).
+    for the rare batch the columnar path does not take (non-finite times,
+    probe ids that are not strings).
     """
     return bytes(encoded_readings(batch))
 
