@@ -23,6 +23,7 @@ __all__ = [
     "Quality",
     "QuarantineItem",
     "ReadingBatch",
+    "factorize_probe_ids",
 ]
 
 CommitHook = Callable[[], None]
@@ -189,3 +190,23 @@ class QuarantineItem:
     reason: str      # what was wrong, for a technician
     raw: str         # the raw text (invalid UTF-8 kept as backslash escapes)
     received_ts: float
+
+
+def factorize_probe_ids(probe: np.ndarray, *, sort: bool) -> tuple[np.ndarray, list[str]] | None:
+    """``(codes, ids)``: each row's index in the list of distinct probe ids (in
+    order of first appearance, or sorted), without pandas; None unless every id
+    is a ``str`` (callers then take their general path).  C-level dict work:
+    faster than ``pandas.factorize`` up to a few thousand rows, about 1.5x slower
+    at 100,000 (0.5 ms more)."""
+    ids = probe.tolist()
+    try:
+        distinct = list(dict.fromkeys(ids))
+    except TypeError:   # an unhashable id
+        return None
+    if not all(type(p) is str for p in distinct):
+        return None     # None or numbers (7, 7.0 and True are one dict key)
+    if sort:
+        distinct.sort()
+    position = {p: i for i, p in enumerate(distinct)}
+    codes = np.fromiter(map(position.__getitem__, ids), dtype=np.intp, count=len(ids))
+    return codes, distinct

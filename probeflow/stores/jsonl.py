@@ -12,7 +12,7 @@ records encoded by orjson.
 
 from __future__ import annotations
 
-import io
+import functools
 import os
 import sys
 import threading
@@ -23,7 +23,7 @@ from typing import IO, Any, Literal
 import numpy as np
 import orjson
 
-from probeflow.batch import QUALITY_NAMES, ProcessedBatch, QuarantineItem
+from probeflow.batch import QUALITY_NAMES, ProcessedBatch, QuarantineItem, factorize_probe_ids
 from probeflow.errors import StoreError
 from probeflow.events import AlertEvent, rfc3339
 from probeflow.pipes import widen_pipe
@@ -182,17 +182,12 @@ def _number_texts(values: np.ndarray) -> Any:
     return _binary_column(data, offsets)
 
 
-_PIECE_SCALARS: tuple[Any, ...] = ()
-
-
-def _piece_scalars() -> tuple[Any, ...]:
-    """The literal pieces (and the empty separator) as Arrow scalars, made once
-    (two threads may both make them; each gets a complete tuple)."""
-    global _PIECE_SCALARS
-    if not _PIECE_SCALARS:
-        column = _texts_column([*_READING_PIECES, b""])
-        _PIECE_SCALARS = tuple(column[i] for i in range(len(column)))
-    return _PIECE_SCALARS
+@functools.cache
+def _constant_columns() -> tuple[tuple[Any, ...], Any]:
+    """Made once: the literal pieces of a line (and the empty separator) as Arrow
+    scalars, and the quality names as a column to ``take`` from."""
+    pieces = _texts_column([*_READING_PIECES, b""])
+    return tuple(pieces[i] for i in range(len(pieces))), _texts_column(_QUALITY_JSON)
 
 
 def _encode_readings_arrow(batch: ProcessedBatch) -> memoryview | None:
@@ -205,19 +200,15 @@ def _encode_readings_arrow(batch: ProcessedBatch) -> memoryview | None:
     stamps = _stamp_matrix(batch.ts)
     if stamps is None:
         return None
-    ids = batch.probe.tolist()
-    try:
-        distinct = list(dict.fromkeys(ids))
-    except TypeError:
-        return None   # an unhashable id
-    if not all(type(p) is str for p in distinct):
-        return None   # None, numbers (7 and 7.0 would share a key here): the straightforward path
+    found = factorize_probe_ids(batch.probe, sort=False)
+    if found is None:
+        return None   # ids that are not all strings: the straightforward path
+    codes, distinct = found
     try:
         probe_texts = _probe_json_texts(distinct)
     except orjson.JSONEncodeError:
         return None   # e.g. a lone surrogate: the straightforward path raises it
-    position = {p: i for i, p in enumerate(distinct)}
-    codes = np.fromiter(map(position.__getitem__, ids), dtype=np.int64, count=n)
+    pieces, quality_texts = _constant_columns()
     columns = [
         _texts_column(probe_texts).take(_index_column(codes)),
         _binary_column(stamps.ravel(), np.arange(n + 1, dtype=np.int64) * _STAMP_BYTES),
@@ -226,9 +217,8 @@ def _encode_readings_arrow(batch: ProcessedBatch) -> memoryview | None:
         _number_texts(batch.ph),
         _number_texts(batch.neutral_ph),
         _number_texts(batch.neutral_dev),
-        _texts_column(_QUALITY_JSON).take(_index_column(batch.quality)),
+        quality_texts.take(_index_column(batch.quality)),
     ]
-    pieces = _piece_scalars()
     args: list[Any] = []
     for literal, column in zip(pieces, columns):
         args += [literal, column]
@@ -407,7 +397,7 @@ class StdoutStore(_StreamStore):
         self._stdout = sys.stdout.buffer
         try:
             widen_pipe(self._stdout.fileno())   # speed only; see probeflow/pipes.py
-        except (OSError, ValueError, io.UnsupportedOperation):
+        except (OSError, ValueError):   # io.UnsupportedOperation is both
             pass   # no file descriptor behind stdout (an embedding program's stream)
         self._qfile: IO[bytes] | None = None
         if config is not None and config.quarantine_path:

@@ -45,7 +45,7 @@ def test_anything_but_a_pipe_is_left_alone(tmp_path):
     assert widen_pipe(w) is None   # a closed descriptor: no error, nothing done
 
 
-def test_filter_widens_its_stdout_pipe(cli, cli_env, tmp_path):
+def test_filter_widens_its_stdin_and_stdout_pipes(cli, cli_env, tmp_path):
     config = tmp_path / "probeflow.yaml"
     config.write_text("site: pipe-test\nprobes:\n  - id: tank-3\n", encoding="utf-8")
     proc = subprocess.Popen(cli + ["filter", "--config", str(config)], stdin=subprocess.PIPE,
